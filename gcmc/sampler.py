@@ -1,0 +1,375 @@
+"""One state point: equilibrate, produce, analyse. A pure function of (model, state, sampling
+settings, seed) returning a result record, cheap to call many times in one process.
+
+Convergence is not judged by block errors alone: a point can run as two replicas started from
+different sides (from the given start, usually the previous lower-pressure state, and from an
+over-filled state), each with a drift test (first half against second half); the point is
+flagged when they disagree beyond their errors.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+from . import statistics as st
+from .henry import pore_limit
+from .model import SLIT, PoreModel
+from .rng import seed_state
+from .simulation import Box, EngineOptions
+from .units import activity_per_nm3, kelvin_to_kj_per_mol, per_nm3_to_mmol_per_cm3
+
+
+@dataclass(frozen=True)
+class ThermoState:
+    """The bulk reservoir a point is in equilibrium with."""
+
+    temperature_K: float
+    fugacity_Pa: float
+    pressure_Pa: float = float("nan")
+    bulk_density_per_nm3: float = float("nan")
+    residual_enthalpy_K: float = 0.0
+    eos: str = "none"
+
+    @property
+    def activity_nm3(self) -> float:
+        return activity_per_nm3(self.fugacity_Pa, self.temperature_K)
+
+
+@dataclass(frozen=True)
+class SamplingSettings:
+    """How hard to sample one point."""
+
+    equilibration_moves: int = 200_000
+    production_moves: int = 1_000_000
+    sample_every: int = 100
+    #: k trial positions per insertion; 0 = automatic (plain insertion, switched to biased
+    #: insertion with ``biased_trials`` when plain insertion is accepted less than
+    #: ``bias_threshold`` per attempt during equilibration).
+    insertion_trials: int = 0
+    biased_trials: int = 128
+    bias_threshold: float = 1.0e-3
+    displacement_fraction: float = 0.5
+    #: independent replicas per point; the second starts over-filled.
+    replicas: int = 1
+    overfill_factor: float = 20.0
+    #: stop production when the relative standard error of N reaches this (0: fixed length)
+    target_rel_stderr: float = 0.0
+    max_production_moves: int = 0
+    #: replicas agree when |z| <= agreement_z or their means differ by <= agreement_rel
+    agreement_z: float = 3.0
+    agreement_rel: float = 0.01
+    cells_per_cutoff: int = 1
+    slab_tail: bool = True
+
+    def validate(self) -> None:
+        from .errors import InputError
+
+        for name in ("equilibration_moves", "production_moves", "sample_every"):
+            v = getattr(self, name)
+            if not isinstance(v, int) or v < (1 if name != "equilibration_moves" else 0):
+                raise InputError(f"sampling.{name}: must be a positive integer, got {v!r}")
+        if self.production_moves < 20 * self.sample_every:
+            raise InputError("sampling.production_moves: must be at least 20 x sample_every")
+        if not 0.0 <= self.displacement_fraction < 1.0:
+            raise InputError("sampling.displacement_fraction: must be in [0, 1)")
+        if self.replicas < 1:
+            raise InputError("sampling.replicas: must be >= 1")
+        if self.target_rel_stderr < 0:
+            raise InputError("sampling.target_rel_stderr: must be >= 0")
+
+
+@dataclass
+class PointResult:
+    """Everything measured at one state point. Densities are per pore volume (A w)."""
+
+    temperature_K: float
+    pressure_Pa: float
+    fugacity_Pa: float
+    activity_per_nm3: float
+    eos: str
+    bulk_density_per_nm3: float
+    molecules_mean: float
+    molecules_stderr: float
+    density_per_nm3: float
+    density_per_nm3_stderr: float
+    excess_density_per_nm3: float
+    density_mmol_per_cm3: float
+    density_mmol_per_cm3_stderr: float
+    excess_density_mmol_per_cm3: float
+    fluid_fluid_energy_K: float
+    fluid_solid_energy_K: float
+    fluid_fluid_energy_kJ_per_mol: float
+    fluid_solid_energy_kJ_per_mol: float
+    isosteric_heat_kJ_per_mol: float
+    isosteric_heat_kJ_per_mol_stderr: float
+    statistical_inefficiency: float
+    equilibration_moves_detected: int
+    drift_z: float
+    replica_means: list[float]
+    replica_stderrs: list[float]
+    replica_agreement_z: float
+    acceptance: dict[str, float]
+    insertion_trials: int
+    moves: int
+    seconds: float
+    converged: bool
+    flags: list[str] = field(default_factory=list)
+    pore_volume_nm3: float = float("nan")
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+@dataclass
+class PointOutcome:
+    result: PointResult
+    positions: np.ndarray       # final configuration of the first replica (for the ladder)
+    max_displacement_nm: float
+    density_profile: np.ndarray  # mean molecules per z bin (first replica)
+    series_n: np.ndarray          # production samples of N (first replica, after the cut)
+
+
+@dataclass
+class _ReplicaRun:
+    n: np.ndarray
+    uff: np.ndarray
+    usf: np.ndarray
+    profile: np.ndarray
+    box: Box
+    moves: int
+    seconds: float
+    t0: int
+    k_trials: int
+    acceptance: dict[str, float]
+
+
+Progress = Callable[[int], None]
+
+
+def _equilibrate(box: Box, moves: int, settings: SamplingSettings, progress: Progress | None,
+                 clock: list[float]) -> None:
+    """Run ``moves`` moves with step-size adaptation (equilibration only)."""
+    if moves <= 0:
+        return
+    chunks = 20
+    per = max(1, moves // chunks)
+    done = 0
+    sig = box.model.probe.sigma_nm
+    lmax = 0.5 * min(box.model.box_lengths_nm)
+    auto_bias = settings.insertion_trials == 0
+    while done < moves:
+        step = min(per, moves - done)
+        box.reset_counters()
+        t = time.perf_counter()
+        box.run(step)
+        clock[0] += time.perf_counter() - t
+        done += step
+        acc = box.acceptance()
+        a = acc["displacement"]
+        if math.isfinite(a):
+            box.max_displacement_nm = float(np.clip(box.max_displacement_nm * np.clip(
+                a / 0.4, 0.5, 1.5), 0.01 * sig, lmax))
+        if auto_bias and done >= moves // 2 and box.ip[5] == 1:
+            ins = acc["insertion"]
+            if math.isfinite(ins) and ins < settings.bias_threshold and box.n_molecules > 0:
+                box.set_insertion_trials(settings.biased_trials)
+        if progress:
+            progress(step)
+
+
+def _produce(box: Box, settings: SamplingSettings, progress: Progress | None,
+             clock: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, int]:
+    every = settings.sample_every
+    target = settings.target_rel_stderr
+    budget = max(settings.production_moves, settings.max_production_moves)
+    total = settings.production_moves if target <= 0 else budget
+    n_samples = total // every
+    out_n = np.zeros(n_samples, dtype=np.int64)
+    out_uff = np.zeros(n_samples)
+    out_usf = np.zeros(n_samples)
+    profile = np.zeros(box.n_bins)
+    box.reset_counters()
+    chunk = max(every, (settings.production_moves // 20) // every * every)
+    written = 0
+    moves = 0
+    while moves < total:
+        step = min(chunk, total - moves)
+        t = time.perf_counter()
+        written += box.run(step, every, out_n, out_uff, out_usf, written, profile)
+        clock[0] += time.perf_counter() - t
+        moves += step
+        if progress:
+            progress(step)
+        if target > 0 and moves >= settings.production_moves and written >= 64:
+            est = st.block_average(out_n[:written].astype(float))
+            mean = est.mean
+            if est.reliable and mean > 0 and est.stderr / mean <= target:
+                if st.drift_test(out_n[:written].astype(float)).passed:
+                    break
+    prof = profile / max(written, 1)
+    return out_n[:written], out_uff[:written], out_usf[:written], prof, moves
+
+
+def _run_replica(model: PoreModel, state: ThermoState, settings: SamplingSettings,
+                 rng: np.ndarray, start: np.ndarray | None, overfill: bool,
+                 max_disp: float | None, progress: Progress | None) -> _ReplicaRun:
+    options = EngineOptions(cells_per_cutoff=settings.cells_per_cutoff,
+                            insertion_trials=max(1, settings.insertion_trials),
+                            displacement_fraction=settings.displacement_fraction,
+                            slab_tail=settings.slab_tail)
+    z = state.activity_nm3
+    box = Box(model, state.temperature_K, z, options, rng_state=rng,
+              max_displacement_nm=max_disp)
+    if start is not None and len(start):
+        box.load_positions(start)
+    clock = [0.0]
+    eq = settings.equilibration_moves
+    moves = 0
+    if overfill:
+        box.activity_nm3 = z * settings.overfill_factor
+        _equilibrate(box, eq // 2, settings, progress, clock)
+        moves += eq // 2
+        box.activity_nm3 = z
+    _equilibrate(box, eq, settings, progress, clock)
+    moves += eq
+    n, uff, usf, prof, pmoves = _produce(box, settings, progress, clock)
+    moves += pmoves
+    acc = box.acceptance()
+    t0 = 0
+    if len(n) >= 40 and np.ptp(n) > 0:
+        t0, _, _ = st.detect_equilibration(n.astype(float))
+    return _ReplicaRun(n=n[t0:], uff=uff[t0:], usf=usf[t0:], profile=prof, box=box,
+                       moves=moves, seconds=clock[0], t0=t0, k_trials=int(box.ip[5]),
+                       acceptance=acc)
+
+
+def _blocked_result(model: PoreModel, state: ThermoState) -> PointOutcome:
+    nan = float("nan")
+    r = PointResult(
+        temperature_K=state.temperature_K, pressure_Pa=state.pressure_Pa,
+        fugacity_Pa=state.fugacity_Pa, activity_per_nm3=state.activity_nm3, eos=state.eos,
+        bulk_density_per_nm3=state.bulk_density_per_nm3, molecules_mean=0.0,
+        molecules_stderr=0.0, density_per_nm3=0.0, density_per_nm3_stderr=0.0,
+        excess_density_per_nm3=0.0, density_mmol_per_cm3=0.0, density_mmol_per_cm3_stderr=0.0,
+        excess_density_mmol_per_cm3=0.0, fluid_fluid_energy_K=nan, fluid_solid_energy_K=nan,
+        fluid_fluid_energy_kJ_per_mol=nan, fluid_solid_energy_kJ_per_mol=nan,
+        isosteric_heat_kJ_per_mol=nan, isosteric_heat_kJ_per_mol_stderr=nan,
+        statistical_inefficiency=1.0, equilibration_moves_detected=0, drift_z=0.0,
+        replica_means=[0.0], replica_stderrs=[0.0], replica_agreement_z=0.0, acceptance={},
+        insertion_trials=0, moves=0, seconds=0.0, converged=True, flags=["inaccessible"],
+        pore_volume_nm3=model.pore_volume_nm3)
+    return PointOutcome(result=r, positions=np.zeros((0, 3)), max_displacement_nm=0.0,
+                        density_profile=np.zeros(1), series_n=np.zeros(0))
+
+
+def simulate_point(model: PoreModel, state: ThermoState, settings: SamplingSettings,
+                   seed: np.random.SeedSequence | int, start: np.ndarray | None = None,
+                   max_displacement_nm: float | None = None,
+                   progress: Progress | None = None) -> PointOutcome:
+    """Simulate one state point. ``start`` is an initial configuration (e.g. the previous
+    point of a pressure ladder); the result is a deterministic function of the arguments."""
+    if model.geometry == SLIT and pore_limit(model, state.temperature_K).blocked:
+        return _blocked_result(model, state)
+    ss = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
+    streams = ss.spawn(settings.replicas)
+    runs = []
+    for r in range(settings.replicas):
+        runs.append(_run_replica(model, state, settings, seed_state(streams[r]),
+                                 start,
+                                 overfill=(r == 1), max_disp=max_displacement_nm,
+                                 progress=progress))
+    return _analyse(model, state, settings, runs)
+
+
+def _analyse(model: PoreModel, state: ThermoState, settings: SamplingSettings,
+             runs: list[_ReplicaRun]) -> PointOutcome:
+    flags: list[str] = []
+    vol = model.pore_volume_nm3
+    ests = [st.block_average(r.n.astype(float)) for r in runs]
+    means = [e.mean for e in ests]
+    errs = [e.stderr for e in ests]
+    for i, e in enumerate(ests):
+        if not e.reliable:
+            flags.append(f"error_unreliable[{i}]: {e.reason}")
+    drift = [st.drift_test(r.n.astype(float)) if len(r.n) >= 40 else None for r in runs]
+    dz = 0.0
+    for i, d in enumerate(drift):
+        if d is None:
+            flags.append(f"too_few_samples[{i}]")
+        else:
+            dz = max(dz, abs(d.z_score)) if math.isfinite(d.z_score) else dz
+            if not d.passed:
+                flags.append(f"drift[{i}]: first vs second half z = {d.z_score:.1f}")
+    agree_z = 0.0
+    if len(runs) >= 2:
+        agree_z, ok = st.agreement(means[0], errs[0], means[1], errs[1],
+                                   threshold=settings.agreement_z, rel_tol=settings.agreement_rel)
+        if not ok:
+            flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
+    # Pool the replicas (inverse-variance weights where errors are available).
+    w = np.array([1.0 / e**2 if e > 0 else 0.0 for e in errs])
+    if w.sum() > 0 and all(e > 0 for e in errs):
+        n_mean = float(np.sum(w * means) / w.sum())
+        n_err = float(1.0 / math.sqrt(w.sum()))
+    else:
+        n_mean = float(np.mean(means))
+        n_err = float(max(errs)) if errs else float("nan")
+    if len(runs) >= 2 and "replicas_disagree" in " ".join(flags):
+        n_err = max(n_err, 0.5 * abs(means[0] - means[1]))  # an honest spread
+    n_all = np.concatenate([r.n for r in runs]).astype(float)
+    u_all = np.concatenate([r.uff + r.usf for r in runs])
+    uff_all = np.concatenate([r.uff for r in runs])
+    usf_all = np.concatenate([r.usf for r in runs])
+    nbar = float(n_all.mean()) if len(n_all) else 0.0
+    eff = nbar if nbar > 0 else float("nan")
+    uff_per = float(uff_all.mean() / eff) if len(uff_all) else float("nan")
+    usf_per = float(usf_all.mean() / eff) if len(usf_all) else float("nan")
+    q = q_err = float("nan")
+    if len(n_all) > 64 and np.var(n_all) > 0:
+        ratio, ratio_err = st.fluctuation_ratio(runs[0].uff + runs[0].usf, runs[0].n.astype(float))
+        if math.isfinite(ratio):
+            q = kelvin_to_kj_per_mol(state.temperature_K + state.residual_enthalpy_K - ratio)
+            q_err = kelvin_to_kj_per_mol(ratio_err)
+    del u_all
+    ineff = ests[0].inefficiency
+    density = n_mean / vol if vol > 0 else float("nan")
+    density_err = n_err / vol if vol > 0 else float("nan")
+    bulk = state.bulk_density_per_nm3
+    excess = density - bulk if math.isfinite(bulk) else float("nan")
+    converged = not any(f.startswith(("drift", "replicas_disagree", "error_unreliable",
+                                      "too_few")) for f in flags)
+    if settings.target_rel_stderr > 0 and n_mean > 0 and n_err / n_mean > settings.target_rel_stderr:
+        flags.append(f"target_not_reached: rel. error {n_err / n_mean:.2g} > "
+                     f"{settings.target_rel_stderr:.2g} within the move budget")
+        converged = False
+    r0 = runs[0]
+    result = PointResult(
+        temperature_K=state.temperature_K, pressure_Pa=state.pressure_Pa,
+        fugacity_Pa=state.fugacity_Pa, activity_per_nm3=state.activity_nm3, eos=state.eos,
+        bulk_density_per_nm3=bulk, molecules_mean=n_mean, molecules_stderr=n_err,
+        density_per_nm3=density, density_per_nm3_stderr=density_err,
+        excess_density_per_nm3=excess,
+        density_mmol_per_cm3=per_nm3_to_mmol_per_cm3(density),
+        density_mmol_per_cm3_stderr=per_nm3_to_mmol_per_cm3(density_err),
+        excess_density_mmol_per_cm3=per_nm3_to_mmol_per_cm3(excess),
+        fluid_fluid_energy_K=uff_per, fluid_solid_energy_K=usf_per,
+        fluid_fluid_energy_kJ_per_mol=kelvin_to_kj_per_mol(uff_per),
+        fluid_solid_energy_kJ_per_mol=kelvin_to_kj_per_mol(usf_per),
+        isosteric_heat_kJ_per_mol=q, isosteric_heat_kJ_per_mol_stderr=q_err,
+        statistical_inefficiency=float(ineff),
+        equilibration_moves_detected=int(settings.equilibration_moves
+                                         + r0.t0 * settings.sample_every),
+        drift_z=float(dz), replica_means=[float(m) for m in means],
+        replica_stderrs=[float(e) for e in errs], replica_agreement_z=float(agree_z),
+        acceptance=r0.acceptance, insertion_trials=r0.k_trials,
+        moves=int(sum(r.moves for r in runs)), seconds=float(sum(r.seconds for r in runs)),
+        converged=converged, flags=flags, pore_volume_nm3=vol)
+    return PointOutcome(result=result, positions=r0.box.positions(),
+                        max_displacement_nm=r0.box.max_displacement_nm,
+                        density_profile=r0.profile, series_n=r0.n)
