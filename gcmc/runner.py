@@ -1,0 +1,230 @@
+"""Running a build: a lock on the output, the log, the progress bar, and the three ways of
+spreading tasks (in this process, a local process pool, or MPI ranks).
+
+Scheduling: tasks go most expensive first (estimated, or learned from finished tasks), and
+are handed out one at a time as workers become free: a process pool's queue, or under MPI a
+shared counter that every rank increments atomically (MPI one-sided Fetch_and_op), so that
+rank 0 works too and no rank waits for a master.
+"""
+
+from __future__ import annotations
+
+import os
+import socket
+import sys
+import threading
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .build import BuildPlan, Task, failure_path, learned_order, make_plan, pending_tasks, \
+    run_task_safely, task_path
+from .config import load_config
+from .errors import InputError
+
+
+# --- MPI detection ---------------------------------------------------------------------------
+
+def mpi_world_size() -> int:
+    """Ranks of the MPI job this process belongs to (1 when not under mpiexec)."""
+    for var in ("OMPI_COMM_WORLD_SIZE", "PMI_SIZE", "PMIX_SIZE", "MPI_LOCALNRANKS",
+                "SLURM_NTASKS_MPI"):
+        v = os.environ.get(var)
+        if v and v.isdigit():
+            return int(v)
+    return 1
+
+
+# --- lock --------------------------------------------------------------------------------------
+
+class BuildLock:
+    """An exclusive lock on a kernel's output (a file created with O_EXCL). A lock left by a
+    process that no longer runs on this host is taken over; any other is refused."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        self.held = False
+
+    def acquire(self) -> None:
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        me = f"{socket.gethostname()} {os.getpid()}\n"
+        for _ in range(2):
+            try:
+                fd = os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+            except FileExistsError:
+                if self._stale():
+                    self.path.unlink(missing_ok=True)
+                    continue
+                owner = self.path.read_text().strip() if self.path.exists() else "?"
+                raise InputError(f"{self.path}: another build is writing this kernel "
+                                 f"(host, pid: {owner}); wait for it or remove the lock if it "
+                                 "is dead") from None
+            with os.fdopen(fd, "w") as fh:
+                fh.write(me)
+            self.held = True
+            return
+        raise InputError(f"{self.path}: could not take the build lock")
+
+    def _stale(self) -> bool:
+        try:
+            host, pid = self.path.read_text().split()
+        except (OSError, ValueError):
+            return True
+        if host != socket.gethostname():
+            return False
+        try:
+            os.kill(int(pid), 0)
+        except ProcessLookupError:
+            return True
+        except PermissionError:
+            return False
+        return False
+
+    def release(self) -> None:
+        if self.held:
+            self.path.unlink(missing_ok=True)
+            self.held = False
+
+
+class BuildLog:
+    def __init__(self, path: Path):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        self.path = path
+        self._lock = threading.Lock()
+
+    def write(self, line: str) -> None:
+        stamp = time.strftime("%Y-%m-%d %H:%M:%S")
+        with self._lock, open(self.path, "a") as fh:
+            fh.write(f"{stamp} {line}\n")
+
+
+@dataclass
+class RunReport:
+    done: list[str] = field(default_factory=list)
+    failed: list[str] = field(default_factory=list)
+    skipped: int = 0
+    seconds: float = 0.0
+
+
+def _points_per_task(plan: BuildPlan) -> int:
+    return len(plan.config.pressures.values) * (2 if plan.config.pressures.descending else 1)
+
+
+def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar) -> RunReport:  # noqa: ANN001
+    """Run the pending tasks in this process (workers == 1) or a process pool."""
+    report = RunReport()
+    todo = learned_order(plan, pending_tasks(plan))
+    report.skipped = len(plan.tasks) - len(todo)
+    per = _points_per_task(plan)
+    t0 = time.perf_counter()
+
+    def record(key: str, status: str, seconds: float, msg: str) -> None:
+        (report.done if status == "done" else report.failed).append(key)
+        log.write(f"task {key} {status} in {seconds:.2f} s {msg}".rstrip())
+        if bar is not None:
+            bar.update(per)
+            if status != "done":
+                bar.write(msg)
+
+    if workers <= 1 or len(todo) <= 1:
+        from .simulation import warm_up
+
+        warm_up()
+        for task in todo:
+            status, sec, msg = run_task_safely(plan, task)
+            record(task.key, status, sec, msg)
+    else:
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor, as_completed
+
+        from .build import _worker_init, _worker_run
+
+        ctx = mp.get_context("spawn")
+        with ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,
+                                 initializer=_worker_init,
+                                 initargs=(str(plan.config.path),)) as pool:
+            futures = [pool.submit(_worker_run, t.t_index, t.w_index) for t in todo]
+            for fut in as_completed(futures):
+                key, status, sec, msg = fut.result()
+                record(key, status, sec, msg)
+    report.seconds = time.perf_counter() - t0
+    return report
+
+
+def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: ANN001
+    """All ranks take tasks from a shared atomic counter; rank 0 shows progress by watching
+    the task files appear (every finished task is on disk before it is counted)."""
+    from mpi4py import MPI
+
+    comm = MPI.COMM_WORLD
+    rank = comm.Get_rank()
+    todo = learned_order(plan, pending_tasks(plan)) if rank == 0 else None
+    keys = comm.bcast([(t.t_index, t.w_index) for t in todo] if rank == 0 else None, root=0)
+    by_key = {(t.t_index, t.w_index): t for t in plan.tasks}
+    order: list[Task] = [by_key[k] for k in keys]
+    report = RunReport(skipped=len(plan.tasks) - len(order))
+    import numpy as np
+
+    itemsize = MPI.INT64_T.Get_size()
+    win = MPI.Win.Allocate(itemsize if rank == 0 else 0, itemsize, comm=comm)
+    if rank == 0:
+        buf = np.frombuffer(win.tomemory(), dtype=np.int64)
+        buf[0] = 0
+    comm.Barrier()
+    stop = threading.Event()
+    watcher = None
+    if rank == 0 and bar is not None:
+        per = _points_per_task(plan)
+
+        def watch() -> None:
+            seen: set[str] = set()
+            while not stop.is_set():
+                for t in order:
+                    if t.key not in seen and (task_path(plan, t).exists()
+                                              or failure_path(plan, t).exists()):
+                        seen.add(t.key)
+                        bar.update(per)
+                stop.wait(0.5)
+
+        watcher = threading.Thread(target=watch, daemon=True)
+        watcher.start()
+    from .simulation import warm_up
+
+    warm_up()
+    t0 = time.perf_counter()
+    one = np.array([1], dtype=np.int64)
+    got = np.zeros(1, dtype=np.int64)
+    while True:
+        win.Lock(0, MPI.LOCK_EXCLUSIVE)
+        win.Fetch_and_op(one, got, 0, 0, MPI.SUM)
+        win.Unlock(0)
+        i = int(got[0])
+        if i >= len(order):
+            break
+        task = order[i]
+        status, sec, msg = run_task_safely(plan, task)
+        (report.done if status == "done" else report.failed).append(task.key)
+        log.write(f"rank {rank} task {task.key} {status} in {sec:.2f} s {msg}".rstrip())
+    comm.Barrier()
+    win.Free()
+    stop.set()
+    if watcher is not None:
+        watcher.join()
+    done = comm.gather(report.done, root=0)
+    failed = comm.gather(report.failed, root=0)
+    if rank == 0:
+        report.done = [k for d in done for k in d]
+        report.failed = [k for f in failed for k in f]
+    report.seconds = time.perf_counter() - t0
+    return report
+
+
+def load_plan(config_path: str | Path) -> BuildPlan:
+    return make_plan(load_config(config_path))
+
+
+def progress_bar(total: int, initial: int, enabled: bool):  # noqa: ANN201
+    from tqdm import tqdm
+
+    return tqdm(total=total, initial=initial, unit="point", desc="build", file=sys.stderr,
+                disable=not enabled, smoothing=0.1, dynamic_ncols=True)
