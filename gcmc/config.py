@@ -192,7 +192,7 @@ def _widths(where: str, table: Any, sigma_ss: float) -> list[float]:
     if h is not None:
         out = h
     elif w is not None:
-        out = [x + sigma_ss for x in w]
+        out = [round(x + sigma_ss, 10) for x in w]
     else:
         if not isinstance(ranges, list) or not ranges:
             raise InputError(f"{where}.ranges: expected a list of tables {{from_nm, to_nm, step_nm}}")
@@ -209,7 +209,7 @@ def _widths(where: str, table: Any, sigma_ss: float) -> list[float]:
             n = int(math.floor((hi - lo) / step + 1e-9))
             vals = [round(lo + k * step, 10) for k in range(n + 1)]
             if axis == "w":
-                vals = [v + sigma_ss for v in vals]
+                vals = [round(v + sigma_ss, 10) for v in vals]
             if out and abs(vals[0] - out[-1]) < 1e-9:
                 vals = vals[1:]  # ranges that share an end point
             out.extend(vals)
