@@ -17,14 +17,13 @@ from typing import Any
 import numpy as np
 
 from .errors import InputError
+from .fits import DEFAULT_FORMS as FIT_DEFAULT_FORMS
 from .model import Probe, Solid, default_solid, get_probe, probe_from_table, solid_from_table
 from .potentials import default_box_nm, default_cutoff_nm
 from .sampler import SamplingSettings
 
 KNOWN_SECTIONS = {"kernel", "probe", "solid", "model", "widths", "temperatures", "pressures",
                   "eos", "sampling", "fit", "seed"}
-DEFAULT_FORMS = ("langmuir", "sips", "toth", "dual_site_langmuir_sips", "hill_de_boer",
-                 "multi_step_2", "multi_step_3")
 
 
 @dataclass(frozen=True)
@@ -36,7 +35,7 @@ class PressureGrid:
 
 @dataclass(frozen=True)
 class FitOptions:
-    forms: tuple[str, ...] = DEFAULT_FORMS
+    forms: tuple[str, ...] = FIT_DEFAULT_FORMS
     p_value_min: float = 1e-3
     above_range: str = "clamp"
     dense_points: int = 200
@@ -356,7 +355,7 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
     from .forms import FORMS
 
     if forms is None:
-        forms = list(DEFAULT_FORMS)
+        forms = list(FIT_DEFAULT_FORMS)
     if not isinstance(forms, list) or not all(isinstance(x, str) for x in forms) or not forms:
         raise InputError(f"{p}: fit.forms: expected a list of form names")
     for fname in forms:
