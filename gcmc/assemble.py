@@ -60,6 +60,8 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
         seconds[ti, wi] = float(arrays["seconds"])
         seeds[ti, wi] = (cfg.seed, ti, wi)
 
+    for b in branches:
+        points[b]["converged"] = points[b]["converged"] == 1.0
     fits: list[list[FitRecord]] = []
     summaries: list[FitSummary] = []
     nd = cfg.fit.dense_points
