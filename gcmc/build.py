@@ -146,14 +146,24 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             arrays[f"{branch}/{name}"] = np.full(n_p, np.nan)
         flags[branch] = [""] * n_p
         order = range(n_p) if branch == "adsorption" else range(n_p - 1, -1, -1)
+        states = [ThermoState(
+            temperature_K=tp.temperature_K, fugacity_Pa=float(tp.fugacities_Pa[k]),
+            pressure_Pa=float(tp.pressures_Pa[k]),
+            bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
+            residual_enthalpy_K=float(tp.residual_enthalpy_K[k]), eos=cfg.eos)
+            for k in range(n_p)]
+        if cfg.sampling.exchange:  # replica exchange along the ladder (gcmc.ladder)
+            from .ladder import simulate_ladder
+
+            ladder = simulate_ladder(model, states, cfg.sampling, point_seeds[b * n_p],
+                                     starts=[positions] * n_p, max_displacement_nm=dmax)
         for k in order:
-            state = ThermoState(
-                temperature_K=tp.temperature_K, fugacity_Pa=float(tp.fugacities_Pa[k]),
-                pressure_Pa=float(tp.pressures_Pa[k]),
-                bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
-                residual_enthalpy_K=float(tp.residual_enthalpy_K[k]), eos=cfg.eos)
-            out = simulate_point(model, state, cfg.sampling, point_seeds[b * n_p + k],
-                                 start=positions, max_displacement_nm=dmax)
+            state = states[k]
+            if cfg.sampling.exchange:
+                out = ladder.points[k]
+            else:
+                out = simulate_point(model, state, cfg.sampling, point_seeds[b * n_p + k],
+                                     start=positions, max_displacement_nm=dmax)
             positions, dmax = out.positions, out.max_displacement_nm or None
             r = out.result
             for name in POINT_FIELDS:

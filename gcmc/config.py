@@ -343,6 +343,7 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         replicas=sf.integer("replicas", d.replicas, 1),
         target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
         max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),
+        exchange=sf.boolean("exchange", d.exchange),
     )
     sf.done()
     try:

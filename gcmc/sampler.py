@@ -66,6 +66,8 @@ class SamplingSettings:
     agreement_rel: float = 0.01
     cells_per_cutoff: int = 1
     slab_tail: bool = True
+    #: replica exchange between neighbouring pressures of a ladder (gcmc.ladder)
+    exchange: bool = False
 
     def validate(self) -> None:
         from .errors import InputError
