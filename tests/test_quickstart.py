@@ -1,0 +1,106 @@
+"""The quickstart kernel end to end (the README's main command), and what a simulated kernel
+must show: fits near reduced chi-square 1 at default settings, and a Henry-law extension below
+the lowest simulated pressure that agrees with the simulated low-pressure points."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def quickstart_kernel(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """Build configs/quickstart.toml as shipped (only the output folder moved to tmp)."""
+    tmp = tmp_path_factory.mktemp("quickstart")
+    text = (ROOT / "configs" / "quickstart.toml").read_text()
+    text = text.replace('output = "../runs/quickstart"', f'output = "{tmp / "out"}"')
+    assert str(tmp / "out") in text, "the quickstart's output line changed; update this test"
+    cfg = tmp / "quickstart.toml"
+    cfg.write_text(text)
+    env = dict(os.environ)
+    proc = subprocess.run([sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress"],
+                          capture_output=True, text=True, env=env, timeout=1500)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    assert "worst fit" in proc.stdout  # the summary table
+    files = sorted((tmp / "out").glob("*.v1.h5"))
+    assert len(files) == 1
+    # a rerun of the same config is a no-op and does not make a new version
+    again = subprocess.run([sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress"],
+                           capture_output=True, text=True, env=env, timeout=600)
+    assert again.returncode == 0 and "up to date" in again.stdout
+    assert sorted((tmp / "out").glob("*.h5")) == files
+    return files[0]
+
+
+def test_quickstart_kernel_reads_and_evaluates(quickstart_kernel: Path) -> None:
+    from gcmc.reader import open_kernel
+
+    k = open_kernel(quickstart_kernel)
+    d = k.data
+    assert d.probe["name"] == "methane"
+    p = np.geomspace(1e2, 3e6, 50)
+    m = k.evaluate(p, d.widths_w_nm, temperature_K=298.15)
+    assert m.shape == (50, len(d.widths_w_nm))
+    assert np.all(np.isfinite(m)) and np.all(m >= 0)
+    # loading grows with pressure at every width (an exact property: dN/dmu = var N / kT >= 0)
+    assert np.all(np.diff(m, axis=0) >= -1e-9)
+
+
+def test_fits_near_unit_reduced_chi2(quickstart_kernel: Path) -> None:
+    """At default settings the chosen forms describe the simulated isotherms to within their
+    errors: the reduced chi-square scatters around 1 (for 10 points and 2-4 parameters its
+    standard deviation is about sqrt(2/dof) ~ 0.5; we allow a median within [0.3, 3])."""
+    from gcmc.reader import open_kernel
+
+    d = open_kernel(quickstart_kernel).data
+    chi = [f.reduced_chi2 for row in d.fits for f in row if f.form != "zero"]
+    assert chi, "no fitted isotherm"
+    assert 0.3 <= float(np.median(chi)) <= 3.0, chi
+    accepted = [f.accepted for row in d.fits for f in row if f.form != "zero"]
+    assert sum(accepted) >= 0.6 * len(accepted), chi
+
+
+def test_henry_extension_agrees_with_low_pressure_points(quickstart_kernel: Path) -> None:
+    """Below the lowest simulated pressure the kernel follows K_H f with the exact Henry
+    constant (quadrature of the wall Boltzmann factor: an exact limit). At the two lowest
+    simulated pressures the simulated density must agree with K_H f within 3 standard errors
+    plus the first-order non-ideality of the adsorbed phase, which we bound from the
+    simulation itself: the change of n/f between the two lowest points."""
+    from gcmc.reader import open_kernel
+
+    k = open_kernel(quickstart_kernel)
+    d = k.data
+    pts = d.points["adsorption"]
+    for w in range(len(d.widths_H_nm)):
+        kh = d.henry_per_nm3_per_pa[0, w]
+        f = d.fugacities_Pa[0]
+        n = pts["density_per_nm3"][0, w]
+        e = pts["density_per_nm3_stderr"][0, w]
+        ratio = n[:2] / (kh * f[:2])
+        slope = abs(ratio[1] - ratio[0]) / (f[1] - f[0])  # d(n / K_H f)/df
+        nonideal = slope * f[0]
+        assert abs(ratio[0] - 1.0) <= 3 * e[0] / (kh * f[0]) + nonideal + 0.01, (
+            d.widths_H_nm[w], ratio, e[:2] / (kh * f[:2]))
+        # and the kernel's own extension: continuous at p_low, exactly K_H p as p -> 0
+        p_low = d.pressures_Pa[0, 0]
+        tiny = np.array([p_low * 1e-4])
+        val = k.evaluate(tiny, d.widths_w_nm[w : w + 1], temperature_K=298.15)[0, 0]
+        assert val == pytest.approx(kh * tiny[0], rel=2e-3)
+
+
+def test_show_and_export(quickstart_kernel: Path, tmp_path: Path) -> None:
+    from gcmc.cli import main
+
+    assert main(["show", str(quickstart_kernel)]) == 0
+    out = tmp_path / "k.csv"
+    assert main(["export", str(quickstart_kernel), "--format", "csv", "--output", str(out)]) == 0
+    assert out.exists() and out.stat().st_size > 0
+    shutil.rmtree(tmp_path, ignore_errors=True)
