@@ -75,19 +75,32 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
             n = points["adsorption"]["density_per_nm3"][ti, wi]
             e = points["adsorption"]["density_per_nm3_stderr"][ti, wi]
             res = fit_isotherm(p, n, e, forms=cfg.fit.forms, p_value_min=cfg.fit.p_value_min)
-            row.append(FitRecord(form=res.form, parameters=np.asarray(res.parameters, float),
-                                 covariance=np.asarray(res.covariance, float), chi2=res.chi2,
-                                 dof=res.dof, reduced_chi2=res.reduced_chi2,
-                                 p_value=res.p_value, aicc=res.aicc,
-                                 residuals=np.asarray(res.residuals, float),
-                                 accepted=res.accepted))
+            row.append(
+                FitRecord(
+                    form=res.form,
+                    parameters=np.asarray(res.parameters, float),
+                    covariance=np.asarray(res.covariance, float),
+                    chi2=res.chi2,
+                    dof=res.dof,
+                    reduced_chi2=res.reduced_chi2,
+                    p_value=res.p_value,
+                    aicc=res.aicc,
+                    residuals=np.asarray(res.residuals, float),
+                    accepted=res.accepted,
+                )
+            )
             summaries.append(FitSummary(ti, wi, res.form, res.reduced_chi2, res.accepted))
             kh = henry[ti, wi] if res.form != "zero" else 0.0
-            dense_n[ti, wi] = evaluate_fit(res.form, res.parameters, dense_p[ti],
-                                           p_low=float(p[0]), p_high=float(p[-1]),
-                                           above=cfg.fit.above_range,
-                                           below="henry" if kh > 0 else "form",
-                                           henry_constant=kh if kh > 0 else None)
+            dense_n[ti, wi] = evaluate_fit(
+                res.form,
+                res.parameters,
+                dense_p[ti],
+                p_low=float(p[0]),
+                p_high=float(p[-1]),
+                above=cfg.fit.above_range,
+                below="henry" if kh > 0 else "form",
+                henry_constant=kh if kh > 0 else None,
+            )
         fits.append(row)
 
     provenance = {
@@ -100,21 +113,30 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
         "config_hash": cfg.config_hash,
         "seed": cfg.seed,
         "seed_rule": "numpy SeedSequence(entropy=seed, spawn_key=(t_index, w_index)); point k of "
-                     "branch b uses child b*P+k of that sequence's spawn(2P)",
+        "branch b uses child b*P+k of that sequence's spawn(2P)",
         "sampling": cfg.sampling.__dict__,
-        "fit": {"forms": list(cfg.fit.forms), "criterion": "AICc among forms with chi2 "
-                "p-value >= p_value_min", "p_value_min": cfg.fit.p_value_min},
+        "fit": {
+            "forms": list(cfg.fit.forms),
+            "criterion": "AICc among forms with chi2 p-value >= p_value_min",
+            "p_value_min": cfg.fit.p_value_min,
+        },
         "below_range": "Henry law with the exact Henry constant: n = K_H p exp(c p), c set "
-                       "for continuity at the lowest simulated pressure",
+        "for continuity at the lowest simulated pressure",
     }
     sf = cfg.probe
     data = KernelData(
-        name=cfg.name, version=version, probe=sf.to_dict(), solid=cfg.solid.to_dict(),
-        cutoff_nm=cfg.cutoff_nm, box_nm=cfg.box_nm,
+        name=cfg.name,
+        version=version,
+        probe=sf.to_dict(),
+        solid=cfg.solid.to_dict(),
+        cutoff_nm=cfg.cutoff_nm,
+        box_nm=cfg.box_nm,
         tail_correction="slab (Janecek 2006) beyond r_c" if cfg.sampling.slab_tail else "none",
-        eos=cfg.eos, eos_parameters=plan.eos_parameters,
+        eos=cfg.eos,
+        eos_parameters=plan.eos_parameters,
         width_convention="internal: w = H - sigma_ss",
-        pore_volume_convention="A * w (w = H - sigma_ss)", sampler="gcmc-ladder",
+        pore_volume_convention="A * w (w = H - sigma_ss)",
+        sampler="gcmc-ladder",
         temperatures_K=np.array(cfg.temperatures_K, float),
         widths_H_nm=np.array(cfg.widths_H_nm, float),
         widths_w_nm=np.array(cfg.widths_H_nm, float) - cfg.solid.sigma_nm,
@@ -123,9 +145,17 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
         saturation_pressures_Pa=np.array([tp.saturation_pressure_Pa for tp in plan.temperatures]),
         fugacities_Pa=np.array([tp.fugacities_Pa for tp in plan.temperatures]),
         bulk_density_per_nm3=np.array([tp.bulk_density_per_nm3 for tp in plan.temperatures]),
-        points=points, flags={b: flags[b].astype(str) for b in branches},
-        henry_per_nm3_per_pa=henry, accessible=accessible, fits=fits,
-        above_range=cfg.fit.above_range, dense_pressures_Pa=dense_p,
-        dense_density_per_nm3=dense_n, config_text=cfg.text, provenance=provenance,
-        task_seeds=seeds, task_seconds=seconds)
+        points=points,
+        flags={b: flags[b].astype(str) for b in branches},
+        henry_per_nm3_per_pa=henry,
+        accessible=accessible,
+        fits=fits,
+        above_range=cfg.fit.above_range,
+        dense_pressures_Pa=dense_p,
+        dense_density_per_nm3=dense_n,
+        config_text=cfg.text,
+        provenance=provenance,
+        task_seeds=seeds,
+        task_seconds=seconds,
+    )
     return data, summaries

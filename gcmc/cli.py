@@ -11,8 +11,14 @@ from . import __version__
 from .errors import InputError
 
 COMMANDS = ("point", "build", "show", "export", "check", "diff")
-_MODULES = {"point": "point", "build": "build", "show": "kernel", "export": "kernel",
-            "check": "check", "diff": "check"}
+_MODULES = {
+    "point": "point",
+    "build": "build",
+    "show": "kernel",
+    "export": "kernel",
+    "check": "check",
+    "diff": "check",
+}
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -22,15 +22,26 @@ from .model import Probe, Solid, default_solid, get_probe, probe_from_table, sol
 from .potentials import default_box_nm, default_cutoff_nm
 from .sampler import SamplingSettings
 
-KNOWN_SECTIONS = {"kernel", "probe", "solid", "model", "widths", "temperatures", "pressures",
-                  "eos", "sampling", "fit", "seed"}
+KNOWN_SECTIONS = {
+    "kernel",
+    "probe",
+    "solid",
+    "model",
+    "widths",
+    "temperatures",
+    "pressures",
+    "eos",
+    "sampling",
+    "fit",
+    "seed",
+}
 
 
 @dataclass(frozen=True)
 class PressureGrid:
-    kind: str                 # "absolute" (values in Pa) or "relative" (values are p/p0)
+    kind: str  # "absolute" (values in Pa) or "relative" (values are p/p0)
     values: tuple[float, ...]
-    descending: bool          # also run the desorption branch
+    descending: bool  # also run the desorption branch
 
 
 @dataclass(frozen=True)
@@ -98,8 +109,9 @@ class _Fields:
         self.used.add(key)
         return self.table[key]
 
-    def number(self, key: str, default: float | None = None, required: bool = False,
-               positive: bool = True) -> float | None:
+    def number(
+        self, key: str, default: float | None = None, required: bool = False, positive: bool = True
+    ) -> float | None:
         v = self._get(key, required and default is None)
         if v is None:
             return default
@@ -137,7 +149,9 @@ class _Fields:
             raise InputError(f"{self.where}.{key}: expected true or false, got {v!r}")
         return v
 
-    def numbers(self, key: str, required: bool = False, positive: bool = True) -> list[float] | None:
+    def numbers(
+        self, key: str, required: bool = False, positive: bool = True
+    ) -> list[float] | None:
         v = self._get(key, required)
         if v is None:
             return None
@@ -163,8 +177,10 @@ def _increasing(where: str, values: list[float]) -> None:
         if values[i] == values[i - 1]:
             raise InputError(f"{where}: duplicate value {values[i]:g}")
         if values[i] < values[i - 1]:
-            raise InputError(f"{where}: values must be sorted increasing "
-                             f"({values[i - 1]:g} before {values[i]:g})")
+            raise InputError(
+                f"{where}: values must be sorted increasing "
+                f"({values[i - 1]:g} before {values[i]:g})"
+            )
 
 
 def _spaced(where: str, f: _Fields, lo_key: str, hi_key: str) -> list[float]:
@@ -194,7 +210,9 @@ def _widths(where: str, table: Any, sigma_ss: float) -> list[float]:
         out = [round(x + sigma_ss, 10) for x in w]
     else:
         if not isinstance(ranges, list) or not ranges:
-            raise InputError(f"{where}.ranges: expected a list of tables {{from_nm, to_nm, step_nm}}")
+            raise InputError(
+                f"{where}.ranges: expected a list of tables {{from_nm, to_nm, step_nm}}"
+            )
         for i, r in enumerate(ranges):
             rf = _Fields(f"{where}.ranges[{i}]", r)
             lo = rf.number("from_nm", required=True)
@@ -216,8 +234,10 @@ def _widths(where: str, table: Any, sigma_ss: float) -> list[float]:
     _increasing(f"{where}", out)
     for x in out:
         if x <= sigma_ss:
-            raise InputError(f"{where}: width H = {x:g} nm is not wider than sigma_ss "
-                             f"({sigma_ss:g} nm): no pore volume")
+            raise InputError(
+                f"{where}: width H = {x:g} nm is not wider than sigma_ss "
+                f"({sigma_ss:g} nm): no pore volume"
+            )
     return out
 
 
@@ -264,11 +284,13 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
             raise InputError(f"{p}: probe.{sorted(extra)[0]}: unknown field next to library_name")
         probe = get_probe(str(pt["library_name"]), lib_path)
     else:
-        probe = probe_from_table(str(pt.get("name", "inline")) if isinstance(pt, dict) else "",
-                                 pt, where=f"{p}: probe")
+        probe = probe_from_table(
+            str(pt.get("name", "inline")) if isinstance(pt, dict) else "", pt, where=f"{p}: probe"
+        )
 
-    solid = solid_from_table("graphite", data.get("solid", {}), where=f"{p}: solid",
-                             base=default_solid())
+    solid = solid_from_table(
+        "graphite", data.get("solid", {}), where=f"{p}: solid", base=default_solid()
+    )
 
     mf = _Fields(f"{p}: model", data.get("model", {}))
     cutoff = mf.number("cutoff_nm", default_cutoff_nm(probe))
@@ -277,8 +299,9 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
     assert box is not None
     mf.done()
     if cutoff > 0.5 * box:
-        raise InputError(f"{p}: model.cutoff_nm: {cutoff:g} nm is larger than half the lateral "
-                         f"box ({box:g} nm)")
+        raise InputError(
+            f"{p}: model.cutoff_nm: {cutoff:g} nm is larger than half the lateral box ({box:g} nm)"
+        )
 
     if "widths" not in data:
         raise InputError(f"{p}: widths: missing")
@@ -296,16 +319,19 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
     eos = ef.string("name", "reference" if probe.reference_eos else "lennard-jones", EOS_NAMES)
     ef.done()
     if eos == "reference" and not probe.reference_eos:
-        raise InputError(f"{p}: eos.name: probe {probe.name!r} has no reference equation of state;"
-                         " use peng-robinson, lennard-jones or ideal")
+        raise InputError(
+            f"{p}: eos.name: probe {probe.name!r} has no reference equation of state;"
+            " use peng-robinson, lennard-jones or ideal"
+        )
 
     if "pressures" not in data:
         raise InputError(f"{p}: pressures: missing")
     pf = _Fields(f"{p}: pressures", data["pressures"])
     kinds = [k for k in ("Pa", "p_p0", "from_Pa", "from_p_p0") if k in pf.table]
     if len(kinds) != 1:
-        raise InputError(f"{p}: pressures: give exactly one of Pa, p_p0, from_Pa/to_Pa, "
-                         "from_p_p0/to_p_p0")
+        raise InputError(
+            f"{p}: pressures: give exactly one of Pa, p_p0, from_Pa/to_Pa, from_p_p0/to_p_p0"
+        )
     kind = kinds[0]
     if kind == "Pa":
         values = pf.numbers("Pa", required=True)
@@ -326,10 +352,13 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         tc = probe.critical_temperature_K
         for t in temps:
             if eos != "lennard-jones" and math.isfinite(tc) and t >= tc:
-                raise InputError(f"{p}: pressures: p/p0 needs a subcritical temperature; "
-                                 f"{t:g} K >= Tc = {tc:g} K")
-    grid = PressureGrid(kind="relative" if relative else "absolute", values=tuple(values),
-                        descending=descending)
+                raise InputError(
+                    f"{p}: pressures: p/p0 needs a subcritical temperature; "
+                    f"{t:g} K >= Tc = {tc:g} K"
+                )
+    grid = PressureGrid(
+        kind="relative" if relative else "absolute", values=tuple(values), descending=descending
+    )
 
     sf = _Fields(f"{p}: sampling", data.get("sampling", {}))
     d = SamplingSettings()
@@ -361,8 +390,9 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         raise InputError(f"{p}: fit.forms: expected a list of form names")
     for fname in forms:
         if fname not in FORMS:
-            raise InputError(f"{p}: fit.forms: unknown form {fname!r}; known: "
-                             f"{', '.join(sorted(FORMS))}")
+            raise InputError(
+                f"{p}: fit.forms: unknown form {fname!r}; known: {', '.join(sorted(FORMS))}"
+            )
     fit = FitOptions(
         forms=tuple(forms),
         p_value_min=ff.number("p_value_min", 1e-3),  # type: ignore[arg-type]
@@ -375,7 +405,20 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise InputError(f"{p}: seed: expected a non-negative integer, got {seed!r}")
 
-    return RunConfig(path=path, text=text, name=name, output=out_dir, probe=probe, solid=solid,
-                     cutoff_nm=cutoff, box_nm=box, widths_H_nm=tuple(widths),
-                     temperatures_K=tuple(temps), pressures=grid, eos=eos, sampling=sampling,
-                     fit=fit, seed=seed)
+    return RunConfig(
+        path=path,
+        text=text,
+        name=name,
+        output=out_dir,
+        probe=probe,
+        solid=solid,
+        cutoff_nm=cutoff,
+        box_nm=box,
+        widths_H_nm=tuple(widths),
+        temperatures_K=tuple(temps),
+        pressures=grid,
+        eos=eos,
+        sampling=sampling,
+        fit=fit,
+        seed=seed,
+    )

@@ -43,10 +43,10 @@ def _wall(z: np.ndarray, model: PoreModel) -> np.ndarray:
 class PoreLimit:
     width_nm: float
     temperature_K: float
-    boltzmann_integral_nm: float   # int_0^H exp(-beta V(z)) dz
-    henry_per_nm3_per_pa: float    # K_H: density per pore volume per Pa of fugacity
-    minimum_potential_k: float     # min_z V(z)
-    accessible: bool               # min V < 0
+    boltzmann_integral_nm: float  # int_0^H exp(-beta V(z)) dz
+    henry_per_nm3_per_pa: float  # K_H: density per pore volume per Pa of fugacity
+    minimum_potential_k: float  # min_z V(z)
+    accessible: bool  # min V < 0
 
     @property
     def blocked(self) -> bool:
@@ -63,9 +63,12 @@ def pore_limit(model: PoreModel, temperature_k: float) -> PoreLimit:
     v = _wall(zs, model)
     k = int(np.argmin(v))
     lo, hi = zs[max(k - 1, 0)], zs[min(k + 1, len(zs) - 1)]
-    res = optimize.minimize_scalar(lambda z: float(_wall(np.array([z]), model)[0]),
-                                   bounds=(lo, hi), method="bounded",
-                                   options={"xatol": 1e-12})
+    res = optimize.minimize_scalar(
+        lambda z: float(_wall(np.array([z]), model)[0]),
+        bounds=(lo, hi),
+        method="bounded",
+        options={"xatol": 1e-12},
+    )
     z_min, v_min = float(res.x), float(min(res.fun, v[k]))
     # Integrate over the half pore where the Boltzmann factor is not negligible.
     bv = beta * (v - v_min)
@@ -76,10 +79,15 @@ def pore_limit(model: PoreModel, temperature_k: float) -> PoreLimit:
         return float(np.exp(-beta * (_wall(np.array([z]), model)[0] - v_min)))
 
     points = [z_min] if z_lo < z_min < 0.5 * h else None
-    half, _ = integrate.quad(f, z_lo, 0.5 * h, points=points, limit=400, epsabs=0.0,
-                             epsrel=1e-11)
+    half, _ = integrate.quad(f, z_lo, 0.5 * h, points=points, limit=400, epsabs=0.0, epsrel=1e-11)
     integral = 2.0 * half * np.exp(-beta * v_min)
     w = model.internal_width_nm
     kh = (integral / w) / (BOLTZMANN_J_PER_K * temperature_k * NM3_PER_M3) if w > 0 else 0.0
-    return PoreLimit(width_nm=h, temperature_K=temperature_k, boltzmann_integral_nm=integral,
-                     henry_per_nm3_per_pa=kh, minimum_potential_k=v_min, accessible=v_min < 0.0)
+    return PoreLimit(
+        width_nm=h,
+        temperature_K=temperature_k,
+        boltzmann_integral_nm=integral,
+        henry_per_nm3_per_pa=kh,
+        minimum_potential_k=v_min,
+        accessible=v_min < 0.0,
+    )

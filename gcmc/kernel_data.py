@@ -20,7 +20,7 @@ import numpy as np
 
 #: Quantities stored per simulated point, with their units. Keys are dataset names.
 POINT_FIELDS: dict[str, str] = {
-    "density_per_nm3": "nm^-3",              # absolute density per pore volume A*w
+    "density_per_nm3": "nm^-3",  # absolute density per pore volume A*w
     "density_per_nm3_stderr": "nm^-3",
     "excess_density_per_nm3": "nm^-3",
     "molecules_mean": "1",
@@ -44,7 +44,7 @@ POINT_FIELDS: dict[str, str] = {
 class FitRecord:
     """A fitted correlating form for one isotherm (one temperature and width)."""
 
-    form: str                    # a name of gcmc.forms.FORMS, "monotone_interpolant" or "zero"
+    form: str  # a name of gcmc.forms.FORMS, "monotone_interpolant" or "zero"
     parameters: np.ndarray
     covariance: np.ndarray
     chi2: float
@@ -52,7 +52,7 @@ class FitRecord:
     reduced_chi2: float
     p_value: float
     aicc: float
-    residuals: np.ndarray        # (simulated - fitted) / stderr at each pressure
+    residuals: np.ndarray  # (simulated - fitted) / stderr at each pressure
     accepted: bool
 
 
@@ -68,33 +68,33 @@ class KernelData:
     tail_correction: str
     eos: str
     eos_parameters: dict[str, Any]
-    width_convention: str                 # "internal: w = H - sigma_ss"
-    pore_volume_convention: str           # "A * w"
-    sampler: str                          # "gcmc-ladder" (point-wise GCMC) for now
+    width_convention: str  # "internal: w = H - sigma_ss"
+    pore_volume_convention: str  # "A * w"
+    sampler: str  # "gcmc-ladder" (point-wise GCMC) for now
     # axes
-    temperatures_K: np.ndarray            # (T,)
-    widths_H_nm: np.ndarray               # (W,)
-    widths_w_nm: np.ndarray               # (W,)
-    pressures_Pa: np.ndarray              # (T, P)
-    relative_pressures: np.ndarray        # (T, P) p/p0, NaN when the grid is absolute
-    saturation_pressures_Pa: np.ndarray   # (T,) p0 from the EOS, NaN above Tc
-    fugacities_Pa: np.ndarray             # (T, P)
-    bulk_density_per_nm3: np.ndarray      # (T, P)
+    temperatures_K: np.ndarray  # (T,)
+    widths_H_nm: np.ndarray  # (W,)
+    widths_w_nm: np.ndarray  # (W,)
+    pressures_Pa: np.ndarray  # (T, P)
+    relative_pressures: np.ndarray  # (T, P) p/p0, NaN when the grid is absolute
+    saturation_pressures_Pa: np.ndarray  # (T,) p0 from the EOS, NaN above Tc
+    fugacities_Pa: np.ndarray  # (T, P)
+    bulk_density_per_nm3: np.ndarray  # (T, P)
     # simulated points: branch -> field -> (T, W, P)
     points: dict[str, dict[str, np.ndarray]]
-    flags: dict[str, np.ndarray]          # branch -> (T, W, P) strings ("" when clean)
+    flags: dict[str, np.ndarray]  # branch -> (T, W, P) strings ("" when clean)
     # exact limits
-    henry_per_nm3_per_pa: np.ndarray      # (T, W)
-    accessible: np.ndarray                # (T, W) bool
+    henry_per_nm3_per_pa: np.ndarray  # (T, W)
+    accessible: np.ndarray  # (T, W) bool
     # fits, adsorption branch: fits[t][w]
     fits: list[list[FitRecord]]
-    above_range: str                      # "clamp" or "refuse"
+    above_range: str  # "clamp" or "refuse"
     # dense table evaluated from the fits
-    dense_pressures_Pa: np.ndarray        # (T, D)
-    dense_density_per_nm3: np.ndarray     # (T, W, D)
+    dense_pressures_Pa: np.ndarray  # (T, D)
+    dense_density_per_nm3: np.ndarray  # (T, W, D)
     # provenance
     config_text: str
-    provenance: dict[str, Any]            # code/library versions, host, created, seeds...
-    task_seeds: np.ndarray                # (T, W) uint64 entropy words per task
-    task_seconds: np.ndarray              # (T, W)
+    provenance: dict[str, Any]  # code/library versions, host, created, seeds...
+    task_seeds: np.ndarray  # (T, W) uint64 entropy words per task
+    task_seconds: np.ndarray  # (T, W)
     extra: dict[str, np.ndarray] = field(default_factory=dict)

@@ -15,7 +15,9 @@ from typing import Any
 
 from .errors import InputError
 
-CONFIG_DIR = Path(os.environ.get("GCMC_CONFIG_DIR", Path(__file__).resolve().parents[1] / "configs"))
+CONFIG_DIR = Path(
+    os.environ.get("GCMC_CONFIG_DIR", Path(__file__).resolve().parents[1] / "configs")
+)
 
 
 @dataclass(frozen=True)
@@ -68,7 +70,11 @@ def solid_fluid_parameters(probe: Probe, solid: Solid) -> SolidFluid:
     if eps is None:
         eps = math.sqrt(probe.epsilon_k * solid.epsilon_k)
     scale = probe.epsilon_sf_scale if probe.epsilon_sf_scale is not None else solid.epsilon_sf_scale
-    sig = probe.sigma_sf_nm if probe.sigma_sf_nm is not None else 0.5 * (probe.sigma_nm + solid.sigma_nm)
+    sig = (
+        probe.sigma_sf_nm
+        if probe.sigma_sf_nm is not None
+        else 0.5 * (probe.sigma_nm + solid.sigma_nm)
+    )
     return SolidFluid(epsilon_k=eps * scale, sigma_nm=sig)
 
 
@@ -81,8 +87,16 @@ _PROBE_FLOATS = (
     "acentric_factor",
 )
 _PROBE_OPTIONAL = ("epsilon_sf_k", "sigma_sf_nm", "epsilon_sf_scale")
-_POSITIVE = {"epsilon_k", "sigma_nm", "molar_mass_g_mol", "critical_temperature_K",
-             "critical_pressure_Pa", "epsilon_sf_k", "sigma_sf_nm", "epsilon_sf_scale"}
+_POSITIVE = {
+    "epsilon_k",
+    "sigma_nm",
+    "molar_mass_g_mol",
+    "critical_temperature_K",
+    "critical_pressure_Pa",
+    "epsilon_sf_k",
+    "sigma_sf_nm",
+    "epsilon_sf_scale",
+}
 
 
 def _number(where: str, key: str, value: Any, positive: bool) -> float:
@@ -117,8 +131,12 @@ def probe_from_table(name: str, table: dict[str, Any], where: str = "probe") -> 
     sources = table.get("sources", {})
     if not isinstance(sources, dict):
         raise InputError(f"{where}.sources: expected a table")
-    return Probe(name=str(table.get("name", name)), reference_eos=ref,
-                 sources={str(k): str(v) for k, v in sources.items()}, **kwargs)
+    return Probe(
+        name=str(table.get("name", name)),
+        reference_eos=ref,
+        sources={str(k): str(v) for k, v in sources.items()},
+        **kwargs,
+    )
 
 
 def _read_toml(path: Path) -> dict[str, Any]:
@@ -135,8 +153,10 @@ def load_probe_library(path: Path | None = None) -> dict[str, Probe]:
     """All probes of a library file (default: configs/probes.toml)."""
     path = Path(path) if path is not None else CONFIG_DIR / "probes.toml"
     data = _read_toml(path)
-    return {name: probe_from_table(name, table, where=f"{path.name}:{name}")
-            for name, table in data.items()}
+    return {
+        name: probe_from_table(name, table, where=f"{path.name}:{name}")
+        for name, table in data.items()
+    }
 
 
 def get_probe(name: str, library: Path | None = None) -> Probe:
@@ -150,12 +170,15 @@ def get_probe(name: str, library: Path | None = None) -> Probe:
 def load_solid_library(path: Path | None = None) -> dict[str, Solid]:
     path = Path(path) if path is not None else CONFIG_DIR / "solids.toml"
     data = _read_toml(path)
-    return {name: solid_from_table(name, table, where=f"{path.name}:{name}")
-            for name, table in data.items()}
+    return {
+        name: solid_from_table(name, table, where=f"{path.name}:{name}")
+        for name, table in data.items()
+    }
 
 
-def solid_from_table(name: str, table: dict[str, Any], where: str = "solid",
-                     base: Solid | None = None) -> Solid:
+def solid_from_table(
+    name: str, table: dict[str, Any], where: str = "solid", base: Solid | None = None
+) -> Solid:
     """A Solid from a TOML table; fields missing from the table come from ``base``."""
     if not isinstance(table, dict):
         raise InputError(f"{where}: expected a table of solid parameters")

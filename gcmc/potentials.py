@@ -21,6 +21,7 @@ OVERLAP_BETA_U = 200.0
 
 # --- Lennard-Jones 12-6 -----------------------------------------------------------------
 
+
 def lj(r_nm: np.ndarray | float, epsilon_k: float, sigma_nm: float) -> np.ndarray | float:
     """Full LJ 12-6 pair energy (K)."""
     s6 = (sigma_nm / np.asarray(r_nm)) ** 6
@@ -41,15 +42,19 @@ def homogeneous_tail_constant(epsilon_k: float, sigma_nm: float, cutoff_nm: floa
     return (8.0 / 3.0) * math.pi * epsilon_k * sigma_nm**3 * (sr3**3 / 3.0 - sr3)
 
 
-def homogeneous_tail_pressure_k_nm3(rho_nm3: float, epsilon_k: float, sigma_nm: float,
-                                    cutoff_nm: float) -> float:
+def homogeneous_tail_pressure_k_nm3(
+    rho_nm3: float, epsilon_k: float, sigma_nm: float, cutoff_nm: float
+) -> float:
     """Tail pressure p_tail/k in K/nm^3 (Allen & Tildesley)."""
     sr3 = (sigma_nm / cutoff_nm) ** 3
-    return (16.0 / 3.0) * math.pi * rho_nm3**2 * epsilon_k * sigma_nm**3 * (2.0 / 3.0 * sr3**3 - sr3)
+    return (
+        (16.0 / 3.0) * math.pi * rho_nm3**2 * epsilon_k * sigma_nm**3 * (2.0 / 3.0 * sr3**3 - sr3)
+    )
 
 
-def slab_tail_pair(dz_nm: np.ndarray | float, epsilon_k: float, sigma_nm: float,
-                   cutoff_nm: float) -> np.ndarray | float:
+def slab_tail_pair(
+    dz_nm: np.ndarray | float, epsilon_k: float, sigma_nm: float, cutoff_nm: float
+) -> np.ndarray | float:
     """Tail energy x area (K nm^2) between a molecule and a laterally uniform smear of one molecule
     per unit area at height difference dz, counting only pair distances beyond the cutoff.
 
@@ -63,6 +68,7 @@ def slab_tail_pair(dz_nm: np.ndarray | float, epsilon_k: float, sigma_nm: float,
 
 
 # --- Steele 10-4-3 wall ------------------------------------------------------------------
+
 
 @njit(cache=True, error_model="numpy")
 def steele_wall(z, prefactor_k, sigma_sf_nm, delta_nm):

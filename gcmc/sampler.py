@@ -134,10 +134,10 @@ class PointResult:
 @dataclass
 class PointOutcome:
     result: PointResult
-    positions: np.ndarray       # final configuration of the first replica (for the ladder)
+    positions: np.ndarray  # final configuration of the first replica (for the ladder)
     max_displacement_nm: float
     density_profile: np.ndarray  # mean molecules per z bin (first replica)
-    series_n: np.ndarray          # production samples of N (first replica, after the cut)
+    series_n: np.ndarray  # production samples of N (first replica, after the cut)
 
 
 @dataclass
@@ -157,8 +157,9 @@ class _ReplicaRun:
 Progress = Callable[[int], None]
 
 
-def _equilibrate(box: Box, moves: int, settings: SamplingSettings, progress: Progress | None,
-                 clock: list[float]) -> None:
+def _equilibrate(
+    box: Box, moves: int, settings: SamplingSettings, progress: Progress | None, clock: list[float]
+) -> None:
     """Run ``moves`` moves with step-size adaptation (equilibration only)."""
     if moves <= 0:
         return
@@ -178,8 +179,9 @@ def _equilibrate(box: Box, moves: int, settings: SamplingSettings, progress: Pro
         acc = box.acceptance()
         a = acc["displacement"]
         if math.isfinite(a):
-            box.max_displacement_nm = float(np.clip(box.max_displacement_nm * np.clip(
-                a / 0.4, 0.5, 1.5), 0.01 * sig, lmax))
+            box.max_displacement_nm = float(
+                np.clip(box.max_displacement_nm * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, lmax)
+            )
         if auto_bias and done >= moves // 2 and box.ip[5] == 1:
             ins = acc["insertion"]
             if math.isfinite(ins) and ins < settings.bias_threshold and box.n_molecules > 0:
@@ -188,8 +190,9 @@ def _equilibrate(box: Box, moves: int, settings: SamplingSettings, progress: Pro
             progress(step)
 
 
-def _produce(box: Box, settings: SamplingSettings, progress: Progress | None,
-             clock: list[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, int]:
+def _produce(
+    box: Box, settings: SamplingSettings, progress: Progress | None, clock: list[float]
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, int]:
     every = settings.sample_every
     target = settings.target_rel_stderr
     budget = max(settings.production_moves, settings.max_production_moves)
@@ -221,16 +224,24 @@ def _produce(box: Box, settings: SamplingSettings, progress: Progress | None,
     return out_n[:written], out_uff[:written], out_usf[:written], prof, moves
 
 
-def _run_replica(model: PoreModel, state: ThermoState, settings: SamplingSettings,
-                 rng: np.ndarray, start: np.ndarray | None, overfill: bool,
-                 max_disp: float | None, progress: Progress | None) -> _ReplicaRun:
-    options = EngineOptions(cells_per_cutoff=settings.cells_per_cutoff,
-                            insertion_trials=max(1, settings.insertion_trials),
-                            displacement_fraction=settings.displacement_fraction,
-                            slab_tail=settings.slab_tail)
+def _run_replica(
+    model: PoreModel,
+    state: ThermoState,
+    settings: SamplingSettings,
+    rng: np.ndarray,
+    start: np.ndarray | None,
+    overfill: bool,
+    max_disp: float | None,
+    progress: Progress | None,
+) -> _ReplicaRun:
+    options = EngineOptions(
+        cells_per_cutoff=settings.cells_per_cutoff,
+        insertion_trials=max(1, settings.insertion_trials),
+        displacement_fraction=settings.displacement_fraction,
+        slab_tail=settings.slab_tail,
+    )
     z = state.activity_nm3
-    box = Box(model, state.temperature_K, z, options, rng_state=rng,
-              max_displacement_nm=max_disp)
+    box = Box(model, state.temperature_K, z, options, rng_state=rng, max_displacement_nm=max_disp)
     if start is not None and len(start):
         box.load_positions(start)
     clock = [0.0]
@@ -249,34 +260,75 @@ def _run_replica(model: PoreModel, state: ThermoState, settings: SamplingSetting
     t0 = 0
     if len(n) >= 40 and np.ptp(n) > 0:
         t0, _, _ = st.detect_equilibration(n.astype(float))
-    return _ReplicaRun(n=n[t0:], uff=uff[t0:], usf=usf[t0:], profile=prof, box=box,
-                       moves=moves, seconds=clock[0], t0=t0, k_trials=int(box.ip[5]),
-                       acceptance=acc)
+    return _ReplicaRun(
+        n=n[t0:],
+        uff=uff[t0:],
+        usf=usf[t0:],
+        profile=prof,
+        box=box,
+        moves=moves,
+        seconds=clock[0],
+        t0=t0,
+        k_trials=int(box.ip[5]),
+        acceptance=acc,
+    )
 
 
 def _blocked_result(model: PoreModel, state: ThermoState) -> PointOutcome:
     nan = float("nan")
     r = PointResult(
-        temperature_K=state.temperature_K, pressure_Pa=state.pressure_Pa,
-        fugacity_Pa=state.fugacity_Pa, activity_per_nm3=state.activity_nm3, eos=state.eos,
-        bulk_density_per_nm3=state.bulk_density_per_nm3, molecules_mean=0.0,
-        molecules_stderr=0.0, density_per_nm3=0.0, density_per_nm3_stderr=0.0,
-        excess_density_per_nm3=0.0, density_mmol_per_cm3=0.0, density_mmol_per_cm3_stderr=0.0,
-        excess_density_mmol_per_cm3=0.0, fluid_fluid_energy_K=nan, fluid_solid_energy_K=nan,
-        fluid_fluid_energy_kJ_per_mol=nan, fluid_solid_energy_kJ_per_mol=nan,
-        isosteric_heat_kJ_per_mol=nan, isosteric_heat_kJ_per_mol_stderr=nan,
-        statistical_inefficiency=1.0, equilibration_moves_detected=0, drift_z=0.0,
-        replica_means=[0.0], replica_stderrs=[0.0], replica_agreement_z=0.0, acceptance={},
-        insertion_trials=0, moves=0, seconds=0.0, converged=True, flags=["inaccessible"],
-        pore_volume_nm3=model.pore_volume_nm3)
-    return PointOutcome(result=r, positions=np.zeros((0, 3)), max_displacement_nm=0.0,
-                        density_profile=np.zeros(1), series_n=np.zeros(0))
+        temperature_K=state.temperature_K,
+        pressure_Pa=state.pressure_Pa,
+        fugacity_Pa=state.fugacity_Pa,
+        activity_per_nm3=state.activity_nm3,
+        eos=state.eos,
+        bulk_density_per_nm3=state.bulk_density_per_nm3,
+        molecules_mean=0.0,
+        molecules_stderr=0.0,
+        density_per_nm3=0.0,
+        density_per_nm3_stderr=0.0,
+        excess_density_per_nm3=0.0,
+        density_mmol_per_cm3=0.0,
+        density_mmol_per_cm3_stderr=0.0,
+        excess_density_mmol_per_cm3=0.0,
+        fluid_fluid_energy_K=nan,
+        fluid_solid_energy_K=nan,
+        fluid_fluid_energy_kJ_per_mol=nan,
+        fluid_solid_energy_kJ_per_mol=nan,
+        isosteric_heat_kJ_per_mol=nan,
+        isosteric_heat_kJ_per_mol_stderr=nan,
+        statistical_inefficiency=1.0,
+        equilibration_moves_detected=0,
+        drift_z=0.0,
+        replica_means=[0.0],
+        replica_stderrs=[0.0],
+        replica_agreement_z=0.0,
+        acceptance={},
+        insertion_trials=0,
+        moves=0,
+        seconds=0.0,
+        converged=True,
+        flags=["inaccessible"],
+        pore_volume_nm3=model.pore_volume_nm3,
+    )
+    return PointOutcome(
+        result=r,
+        positions=np.zeros((0, 3)),
+        max_displacement_nm=0.0,
+        density_profile=np.zeros(1),
+        series_n=np.zeros(0),
+    )
 
 
-def simulate_point(model: PoreModel, state: ThermoState, settings: SamplingSettings,
-                   seed: np.random.SeedSequence | int, start: np.ndarray | None = None,
-                   max_displacement_nm: float | None = None,
-                   progress: Progress | None = None) -> PointOutcome:
+def simulate_point(
+    model: PoreModel,
+    state: ThermoState,
+    settings: SamplingSettings,
+    seed: np.random.SeedSequence | int,
+    start: np.ndarray | None = None,
+    max_displacement_nm: float | None = None,
+    progress: Progress | None = None,
+) -> PointOutcome:
     """Simulate one state point. ``start`` is an initial configuration (e.g. the previous
     point of a pressure ladder); the result is a deterministic function of the arguments."""
     if model.geometry == SLIT and pore_limit(model, state.temperature_K).blocked:
@@ -285,15 +337,24 @@ def simulate_point(model: PoreModel, state: ThermoState, settings: SamplingSetti
     streams = ss.spawn(settings.replicas)
     runs = []
     for r in range(settings.replicas):
-        runs.append(_run_replica(model, state, settings, seed_state(streams[r]),
-                                 start,
-                                 overfill=(r == 1), max_disp=max_displacement_nm,
-                                 progress=progress))
+        runs.append(
+            _run_replica(
+                model,
+                state,
+                settings,
+                seed_state(streams[r]),
+                start,
+                overfill=(r == 1),
+                max_disp=max_displacement_nm,
+                progress=progress,
+            )
+        )
     return _analyse(model, state, settings, runs)
 
 
-def _analyse(model: PoreModel, state: ThermoState, settings: SamplingSettings,
-             runs: list[_ReplicaRun]) -> PointOutcome:
+def _analyse(
+    model: PoreModel, state: ThermoState, settings: SamplingSettings, runs: list[_ReplicaRun]
+) -> PointOutcome:
     flags: list[str] = []
     vol = model.pore_volume_nm3
     ests = [st.block_average(r.n.astype(float)) for r in runs]
@@ -313,8 +374,14 @@ def _analyse(model: PoreModel, state: ThermoState, settings: SamplingSettings,
                 flags.append(f"drift[{i}]: first vs second half z = {d.z_score:.1f}")
     agree_z = 0.0
     if len(runs) >= 2:
-        agree_z, ok = st.agreement(means[0], errs[0], means[1], errs[1],
-                                   threshold=settings.agreement_z, rel_tol=settings.agreement_rel)
+        agree_z, ok = st.agreement(
+            means[0],
+            errs[0],
+            means[1],
+            errs[1],
+            threshold=settings.agreement_z,
+            rel_tol=settings.agreement_rel,
+        )
         if not ok:
             flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
     # Pool the replicas (inverse-variance weights where errors are available).
@@ -347,34 +414,61 @@ def _analyse(model: PoreModel, state: ThermoState, settings: SamplingSettings,
     density_err = n_err / vol if vol > 0 else float("nan")
     bulk = state.bulk_density_per_nm3
     excess = density - bulk if math.isfinite(bulk) else float("nan")
-    converged = not any(f.startswith(("drift", "replicas_disagree", "error_unreliable",
-                                      "too_few")) for f in flags)
-    if settings.target_rel_stderr > 0 and n_mean > 0 and n_err / n_mean > settings.target_rel_stderr:
-        flags.append(f"target_not_reached: rel. error {n_err / n_mean:.2g} > "
-                     f"{settings.target_rel_stderr:.2g} within the move budget")
+    converged = not any(
+        f.startswith(("drift", "replicas_disagree", "error_unreliable", "too_few")) for f in flags
+    )
+    if (
+        settings.target_rel_stderr > 0
+        and n_mean > 0
+        and n_err / n_mean > settings.target_rel_stderr
+    ):
+        flags.append(
+            f"target_not_reached: rel. error {n_err / n_mean:.2g} > "
+            f"{settings.target_rel_stderr:.2g} within the move budget"
+        )
         converged = False
     r0 = runs[0]
     result = PointResult(
-        temperature_K=state.temperature_K, pressure_Pa=state.pressure_Pa,
-        fugacity_Pa=state.fugacity_Pa, activity_per_nm3=state.activity_nm3, eos=state.eos,
-        bulk_density_per_nm3=bulk, molecules_mean=n_mean, molecules_stderr=n_err,
-        density_per_nm3=density, density_per_nm3_stderr=density_err,
+        temperature_K=state.temperature_K,
+        pressure_Pa=state.pressure_Pa,
+        fugacity_Pa=state.fugacity_Pa,
+        activity_per_nm3=state.activity_nm3,
+        eos=state.eos,
+        bulk_density_per_nm3=bulk,
+        molecules_mean=n_mean,
+        molecules_stderr=n_err,
+        density_per_nm3=density,
+        density_per_nm3_stderr=density_err,
         excess_density_per_nm3=excess,
         density_mmol_per_cm3=per_nm3_to_mmol_per_cm3(density),
         density_mmol_per_cm3_stderr=per_nm3_to_mmol_per_cm3(density_err),
         excess_density_mmol_per_cm3=per_nm3_to_mmol_per_cm3(excess),
-        fluid_fluid_energy_K=uff_per, fluid_solid_energy_K=usf_per,
+        fluid_fluid_energy_K=uff_per,
+        fluid_solid_energy_K=usf_per,
         fluid_fluid_energy_kJ_per_mol=kelvin_to_kj_per_mol(uff_per),
         fluid_solid_energy_kJ_per_mol=kelvin_to_kj_per_mol(usf_per),
-        isosteric_heat_kJ_per_mol=q, isosteric_heat_kJ_per_mol_stderr=q_err,
+        isosteric_heat_kJ_per_mol=q,
+        isosteric_heat_kJ_per_mol_stderr=q_err,
         statistical_inefficiency=float(ineff),
-        equilibration_moves_detected=int(settings.equilibration_moves
-                                         + r0.t0 * settings.sample_every),
-        drift_z=float(dz), replica_means=[float(m) for m in means],
-        replica_stderrs=[float(e) for e in errs], replica_agreement_z=float(agree_z),
-        acceptance=r0.acceptance, insertion_trials=r0.k_trials,
-        moves=int(sum(r.moves for r in runs)), seconds=float(sum(r.seconds for r in runs)),
-        converged=converged, flags=flags, pore_volume_nm3=vol)
-    return PointOutcome(result=result, positions=r0.box.positions(),
-                        max_displacement_nm=r0.box.max_displacement_nm,
-                        density_profile=r0.profile, series_n=r0.n)
+        equilibration_moves_detected=int(
+            settings.equilibration_moves + r0.t0 * settings.sample_every
+        ),
+        drift_z=float(dz),
+        replica_means=[float(m) for m in means],
+        replica_stderrs=[float(e) for e in errs],
+        replica_agreement_z=float(agree_z),
+        acceptance=r0.acceptance,
+        insertion_trials=r0.k_trials,
+        moves=int(sum(r.moves for r in runs)),
+        seconds=float(sum(r.seconds for r in runs)),
+        converged=converged,
+        flags=flags,
+        pore_volume_nm3=vol,
+    )
+    return PointOutcome(
+        result=result,
+        positions=r0.box.positions(),
+        max_displacement_nm=r0.box.max_displacement_nm,
+        density_profile=r0.profile,
+        series_n=r0.n,
+    )

@@ -26,15 +26,25 @@ def quickstart_kernel(tmp_path_factory: pytest.TempPathFactory) -> Path:
     cfg = tmp / "quickstart.toml"
     cfg.write_text(text)
     env = dict(os.environ)
-    proc = subprocess.run([sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress"],
-                          capture_output=True, text=True, env=env, timeout=1500)
+    proc = subprocess.run(
+        [sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress"],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=1500,
+    )
     assert proc.returncode == 0, proc.stderr[-3000:]
     assert "worst fit" in proc.stdout  # the summary table
     files = sorted((tmp / "out").glob("*.v1.h5"))
     assert len(files) == 1
     # a rerun of the same config is a no-op and does not make a new version
-    again = subprocess.run([sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress"],
-                           capture_output=True, text=True, env=env, timeout=600)
+    again = subprocess.run(
+        [sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress"],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=600,
+    )
     assert again.returncode == 0 and "up to date" in again.stdout
     assert sorted((tmp / "out").glob("*.h5")) == files
     return files[0]
@@ -88,7 +98,10 @@ def test_henry_extension_agrees_with_low_pressure_points(quickstart_kernel: Path
         slope = abs(ratio[1] - ratio[0]) / (f[1] - f[0])  # d(n / K_H f)/df
         nonideal = slope * f[0]
         assert abs(ratio[0] - 1.0) <= 3 * e[0] / (kh * f[0]) + nonideal + 0.01, (
-            d.widths_H_nm[w], ratio, e[:2] / (kh * f[:2]))
+            d.widths_H_nm[w],
+            ratio,
+            e[:2] / (kh * f[:2]),
+        )
         # and the kernel's own extension: continuous at p_low, exactly K_H p as p -> 0
         p_low = d.pressures_Pa[0, 0]
         tiny = np.array([p_low * 1e-4])

@@ -19,8 +19,9 @@ print(json.dumps({"seconds": t, "hits": sum(s.cache_hits.values()),
 
 
 def _run() -> dict:
-    out = subprocess.run([sys.executable, "-c", PROBE], capture_output=True, text=True,
-                         timeout=600, check=True)
+    out = subprocess.run(
+        [sys.executable, "-c", PROBE], capture_output=True, text=True, timeout=600, check=True
+    )
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
@@ -35,9 +36,28 @@ def test_point_reports_first_call_cost() -> None:
     from gcmc.cli import main  # noqa: F401  (import check only)
 
     out = subprocess.run(
-        [sys.executable, "-m", "gcmc.cli", "point", "--probe", "argon", "--temperature", "300",
-         "--width", "1.2", "--fugacity", "1e5", "--moves", "20000", "--json"],
-        capture_output=True, text=True, timeout=600, check=True)
+        [
+            sys.executable,
+            "-m",
+            "gcmc.cli",
+            "point",
+            "--probe",
+            "argon",
+            "--temperature",
+            "300",
+            "--width",
+            "1.2",
+            "--fugacity",
+            "1e5",
+            "--moves",
+            "20000",
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=600,
+        check=True,
+    )
     payload = json.loads(out.stdout)
     assert payload["compile_or_cache_load_seconds"] > 0
     assert payload["seconds"] > 0  # wall time of the moves alone, compilation excluded

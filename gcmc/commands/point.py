@@ -16,8 +16,12 @@ object with --json."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("point", help="simulate one state point", description=HELP,
-                       formatter_class=argparse.ArgumentDefaultsHelpFormatter)
+    p = sub.add_parser(
+        "point",
+        help="simulate one state point",
+        description=HELP,
+        formatter_class=argparse.ArgumentDefaultsHelpFormatter,
+    )
     g = p.add_argument_group("probe")
     g.add_argument("--probe", help="a probe of the library (configs/probes.toml), e.g. argon")
     g.add_argument("--epsilon-k", type=float, help="inline probe: LJ epsilon/k in K")
@@ -25,28 +29,59 @@ def register(sub: argparse._SubParsersAction) -> None:
     g.add_argument("--probe-file", help="a TOML probe library of your own (default: the project's)")
     s = p.add_argument_group("state")
     s.add_argument("--temperature", type=float, required=True, metavar="K", help="temperature in K")
-    s.add_argument("--pressure", type=float, metavar="PA", help="bulk pressure in Pa (through --eos)")
-    s.add_argument("--fugacity", type=float, metavar="PA", help="bulk fugacity in Pa (no EOS needed)")
-    s.add_argument("--eos", default=None,
-                   help="reference | peng-robinson | lennard-jones | ideal (default: reference "
-                        "where the probe has one, else lennard-jones)")
+    s.add_argument(
+        "--pressure", type=float, metavar="PA", help="bulk pressure in Pa (through --eos)"
+    )
+    s.add_argument(
+        "--fugacity", type=float, metavar="PA", help="bulk fugacity in Pa (no EOS needed)"
+    )
+    s.add_argument(
+        "--eos",
+        default=None,
+        help="reference | peng-robinson | lennard-jones | ideal (default: reference "
+        "where the probe has one, else lennard-jones)",
+    )
     geo = p.add_argument_group("geometry")
-    geo.add_argument("--width", type=float, metavar="NM",
-                     help="slit width H in nm, between the planes of carbon nuclei")
+    geo.add_argument(
+        "--width",
+        type=float,
+        metavar="NM",
+        help="slit width H in nm, between the planes of carbon nuclei",
+    )
     geo.add_argument("--bulk", action="store_true", help="a periodic cube of bulk fluid instead")
-    geo.add_argument("--box", type=float, metavar="NM",
-                     help="periodic edge in nm (default: max(2 x cutoff, 10 sigma))")
+    geo.add_argument(
+        "--box",
+        type=float,
+        metavar="NM",
+        help="periodic edge in nm (default: max(2 x cutoff, 10 sigma))",
+    )
     geo.add_argument("--cutoff", type=float, metavar="NM", help="LJ cutoff in nm (default 3 sigma)")
-    geo.add_argument("--epsilon-sf-scale", type=float, default=None,
-                     help="scale the Lorentz-Berthelot solid-fluid epsilon")
+    geo.add_argument(
+        "--epsilon-sf-scale",
+        type=float,
+        default=None,
+        help="scale the Lorentz-Berthelot solid-fluid epsilon",
+    )
     m = p.add_argument_group("sampling")
-    m.add_argument("--moves", type=int, default=1_000_000,
-                   help="trial moves in all (the first fifth equilibrates)")
-    m.add_argument("--replicas", type=int, default=1,
-                   help="independent replicas (2: the second starts over-filled; a point whose "
-                        "replicas disagree is flagged)")
-    m.add_argument("--insertion-trials", type=int, default=0,
-                   help="trial positions per insertion (1 plain, k > 1 biased, 0 automatic)")
+    m.add_argument(
+        "--moves",
+        type=int,
+        default=1_000_000,
+        help="trial moves in all (the first fifth equilibrates)",
+    )
+    m.add_argument(
+        "--replicas",
+        type=int,
+        default=1,
+        help="independent replicas (2: the second starts over-filled; a point whose "
+        "replicas disagree is flagged)",
+    )
+    m.add_argument(
+        "--insertion-trials",
+        type=int,
+        default=0,
+        help="trial positions per insertion (1 plain, k > 1 biased, 0 automatic)",
+    )
     m.add_argument("--seed", type=int, default=12345, help="random seed")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=run)
@@ -67,8 +102,16 @@ def run(args: argparse.Namespace) -> int:
     from ..potentials import default_box_nm, default_cutoff_nm
     from ..sampler import SamplingSettings, ThermoState, simulate_point
 
-    for name in ("temperature", "pressure", "fugacity", "box", "cutoff", "epsilon_k",
-                 "sigma_nm", "epsilon_sf_scale"):
+    for name in (
+        "temperature",
+        "pressure",
+        "fugacity",
+        "box",
+        "cutoff",
+        "epsilon_k",
+        "sigma_nm",
+        "epsilon_sf_scale",
+    ):
         _finite(name.replace("_", "-"), getattr(args, name))
     if args.width is not None and not math.isfinite(args.width):
         raise InputError(f"--width: must be a finite number, got {args.width}")
@@ -100,24 +143,40 @@ def run(args: argparse.Namespace) -> int:
     if cutoff > 0.5 * box:
         raise InputError(f"--cutoff: {cutoff:g} nm is larger than half the box ({box:g} nm)")
     geometry = BULK if args.bulk else SLIT
-    model = PoreModel(probe=probe, solid=solid, geometry=geometry, cutoff_nm=cutoff,
-                      box_nm=box, width_nm=args.width or 0.0)
+    model = PoreModel(
+        probe=probe,
+        solid=solid,
+        geometry=geometry,
+        cutoff_nm=cutoff,
+        box_nm=box,
+        width_nm=args.width or 0.0,
+    )
     if geometry == SLIT and model.internal_width_nm <= 0:
-        raise InputError(f"--width: H = {args.width} nm is not wider than sigma_ss "
-                         f"({solid.sigma_nm} nm): no pore volume")
+        raise InputError(
+            f"--width: H = {args.width} nm is not wider than sigma_ss "
+            f"({solid.sigma_nm} nm): no pore volume"
+        )
     eos_name = args.eos or ("reference" if probe.reference_eos else "lennard-jones")
     eos = make_eos(eos_name, probe)
     if args.pressure is not None:
         bulk = eos.state(args.temperature, args.pressure)
     else:
         bulk = eos.state_from_fugacity(args.temperature, args.fugacity)
-    state = ThermoState(temperature_K=args.temperature, fugacity_Pa=bulk.fugacity_Pa,
-                        pressure_Pa=bulk.pressure_Pa,
-                        bulk_density_per_nm3=bulk.density_per_nm3,
-                        residual_enthalpy_K=bulk.residual_enthalpy_K, eos=eos.name)
+    state = ThermoState(
+        temperature_K=args.temperature,
+        fugacity_Pa=bulk.fugacity_Pa,
+        pressure_Pa=bulk.pressure_Pa,
+        bulk_density_per_nm3=bulk.density_per_nm3,
+        residual_enthalpy_K=bulk.residual_enthalpy_K,
+        eos=eos.name,
+    )
     eq = args.moves // 5
-    settings = SamplingSettings(equilibration_moves=eq, production_moves=args.moves - eq,
-                                replicas=args.replicas, insertion_trials=args.insertion_trials)
+    settings = SamplingSettings(
+        equilibration_moves=eq,
+        production_moves=args.moves - eq,
+        replicas=args.replicas,
+        insertion_trials=args.insertion_trials,
+    )
     settings.validate()
     from ..simulation import warm_up
 
@@ -125,8 +184,15 @@ def run(args: argparse.Namespace) -> int:
     total = args.moves * args.replicas + (eq // 2 if args.replicas > 1 else 0)
     from tqdm import tqdm
 
-    with tqdm(total=total, unit="move", unit_scale=True, desc="point", file=sys.stderr,
-              disable=None, leave=False) as bar:
+    with tqdm(
+        total=total,
+        unit="move",
+        unit_scale=True,
+        desc="point",
+        file=sys.stderr,
+        disable=None,
+        leave=False,
+    ) as bar:
         outcome = simulate_point(model, state, settings, args.seed, progress=bar.update)
     r = outcome.result
     payload = r.to_dict()
@@ -147,8 +213,11 @@ def _json_default(o: object) -> object:
 
 
 def _print_summary(model, r, eos_name: str, compile_s: float) -> None:  # noqa: ANN001
-    geo = (f"slit pore H = {model.width_nm:g} nm (w = {model.internal_width_nm:.3f} nm)"
-           if model.geometry == "slit" else "bulk cube")
+    geo = (
+        f"slit pore H = {model.width_nm:g} nm (w = {model.internal_width_nm:.3f} nm)"
+        if model.geometry == "slit"
+        else "bulk cube"
+    )
     lx, ly, lz = model.box_lengths_nm
     lines = [
         f"{model.probe.name} (eps/k = {model.probe.epsilon_k} K, sigma = {model.probe.sigma_nm} nm)"
@@ -166,7 +235,7 @@ def _print_summary(model, r, eos_name: str, compile_s: float) -> None:  # noqa: 
         f"  isosteric heat       {r.isosteric_heat_kJ_per_mol:12.4f} +- "
         f"{r.isosteric_heat_kJ_per_mol_stderr:.4f} kJ/mol",
         f"  stat. inefficiency   {r.statistical_inefficiency:12.1f} samples",
-        f"  acceptance           " + ", ".join(f"{k} {v:.3g}" for k, v in r.acceptance.items()),
+        "  acceptance           " + ", ".join(f"{k} {v:.3g}" for k, v in r.acceptance.items()),
         f"  moves                {r.moves:12d} in {r.seconds:.2f} s "
         f"({r.moves / max(r.seconds, 1e-9):.3g} moves/s; engine load {compile_s:.1f} s)",
         f"  converged            {'yes' if r.converged else 'NO'}",
