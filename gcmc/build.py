@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .config import RunConfig, load_config
+from .config import RunConfig
 from .errors import InputError
 from .kernel_data import POINT_FIELDS
 from .model import SLIT, PoreModel
@@ -128,6 +128,11 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     from .henry import pore_limit
     from .sampler import ThermoState, simulate_point
 
+    # Test hook (used by tests/test_build_resume.py): GCMC_FAIL_TASK=t000_w002[,...] makes
+    # these tasks fail, to exercise failure reporting and retry on rerun. Unset in real builds.
+    fail_keys = os.environ.get("GCMC_FAIL_TASK", "")
+    if task.key in fail_keys.split(","):
+        raise RuntimeError(f"failed on purpose (test hook GCMC_FAIL_TASK={fail_keys})")
     cfg = plan.config
     tp = plan.temperatures[task.t_index]
     model = pore_model(cfg, task.w_index)
@@ -240,10 +245,12 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
 _WORKER_PLAN: BuildPlan | None = None
 
 
-def _worker_init(config_path: str) -> None:
+def _worker_init(plan: BuildPlan) -> None:
+    # The parent's plan itself (pickled, a few kB): a worker does not re-read the config
+    # (which may have been edited since the build started) nor redo the EOS states (~2 s).
     global _WORKER_PLAN
     os.environ.setdefault("NUMBA_NUM_THREADS", "1")
-    _WORKER_PLAN = make_plan(load_config(config_path))
+    _WORKER_PLAN = plan
     from .simulation import warm_up
 
     warm_up()

@@ -28,7 +28,7 @@ from .errors import InputError
 def mpi_world_size() -> int:
     """Ranks of the MPI job this process belongs to (1 when not under mpiexec)."""
     for var in ("OMPI_COMM_WORLD_SIZE", "PMI_SIZE", "PMIX_SIZE", "MPI_LOCALNRANKS",
-                "SLURM_NTASKS_MPI"):
+                "SLURM_STEP_NUM_TASKS"):
         v = os.environ.get(var)
         if v and v.isdigit():
             return int(v)
@@ -39,7 +39,9 @@ def mpi_world_size() -> int:
 
 class BuildLock:
     """An exclusive lock on a kernel's output (a file created with O_EXCL). A lock left by a
-    process that no longer runs on this host is taken over; any other is refused."""
+    process that no longer runs on this host is taken over; so is one left by an earlier run
+    of the same SLURM job (a requeued job restarts on any node; SLURM starts the new run only
+    after the old one has ended); any other is refused."""
 
     def __init__(self, path: Path):
         self.path = path
@@ -47,7 +49,7 @@ class BuildLock:
 
     def acquire(self) -> None:
         self.path.parent.mkdir(parents=True, exist_ok=True)
-        me = f"{socket.gethostname()} {os.getpid()}\n"
+        me = f"{socket.gethostname()} {os.getpid()}{_slurm_run()}\n"
         for _ in range(2):
             try:
                 fd = os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
@@ -67,9 +69,20 @@ class BuildLock:
 
     def _stale(self) -> bool:
         try:
-            host, pid = self.path.read_text().split()
+            host, pid, *rest = self.path.read_text().split()
+            int(pid)
         except (OSError, ValueError):
-            return True
+            # Unreadable or empty: either left half-written by a dead process, or just created
+            # by a live one that has not written its line yet (O_EXCL create, then write).
+            try:
+                return time.time() - self.path.stat().st_mtime > 10.0
+            except OSError:
+                return True
+        if rest and rest[0].startswith("slurm:") and _slurm_run().strip():
+            job, _, restart = rest[0][6:].partition(".")
+            me_job, _, me_restart = _slurm_run().strip()[6:].partition(".")
+            if job == me_job and restart.isdigit() and int(restart) < int(me_restart):
+                return True
         if host != socket.gethostname():
             return False
         try:
@@ -84,6 +97,15 @@ class BuildLock:
         if self.held:
             self.path.unlink(missing_ok=True)
             self.held = False
+
+
+def _slurm_run() -> str:
+    """The lock's SLURM tag, ' slurm:JOB.RESTART' (RESTART counts requeues); '' outside."""
+    job = os.environ.get("SLURM_JOB_ID", "")
+    restart = os.environ.get("SLURM_RESTART_COUNT", "0")
+    if not job.isdigit() or not restart.isdigit():
+        return ""
+    return f" slurm:{job}.{restart}"
 
 
 class BuildLog:
@@ -142,7 +164,7 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar) -> RunRep
         ctx = mp.get_context("spawn")
         with ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,
                                  initializer=_worker_init,
-                                 initargs=(str(plan.config.path),)) as pool:
+                                 initargs=(plan,)) as pool:
             futures = [pool.submit(_worker_run, t.t_index, t.w_index) for t in todo]
             for fut in as_completed(futures):
                 key, status, sec, msg = fut.result()
@@ -171,6 +193,11 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: AN
         buf = np.frombuffer(win.tomemory(), dtype=np.int64)
         buf[0] = 0
     comm.Barrier()
+    # One passive-target epoch for the whole run, and Fetch_and_op + Flush per task: an
+    # exclusive Lock/Unlock per fetch needs the target (rank 0) to enter the MPI library to
+    # grant the lock, so under MPICH every other rank waited for rank 0's current task to end
+    # before it got its next one. Fetch_and_op is atomic by itself and needs no lock.
+    win.Lock_all()
     stop = threading.Event()
     watcher = None
     if rank == 0 and bar is not None:
@@ -195,9 +222,8 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: AN
     one = np.array([1], dtype=np.int64)
     got = np.zeros(1, dtype=np.int64)
     while True:
-        win.Lock(0, MPI.LOCK_EXCLUSIVE)
         win.Fetch_and_op(one, got, 0, 0, MPI.SUM)
-        win.Unlock(0)
+        win.Flush(0)
         i = int(got[0])
         if i >= len(order):
             break
@@ -205,6 +231,7 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: AN
         status, sec, msg = run_task_safely(plan, task)
         (report.done if status == "done" else report.failed).append(task.key)
         log.write(f"rank {rank} task {task.key} {status} in {sec:.2f} s {msg}".rstrip())
+    win.Unlock_all()
     comm.Barrier()
     win.Free()
     stop.set()

@@ -41,6 +41,9 @@ def run(args: argparse.Namespace) -> int:
     if size > 1:
         from mpi4py import MPI
 
+        # the launcher's environment is a hint; the communicator decides (a process started
+        # by srun without an MPI plugin is a singleton and builds with a local pool instead)
+        size = MPI.COMM_WORLD.Get_size()
         rank = MPI.COMM_WORLD.Get_rank()
     try:
         return _run(args, size, rank)
@@ -100,12 +103,15 @@ def _run(args: argparse.Namespace, size: int, rank: int) -> int:
                 report = run_tasks_local(plan, workers, log, bar)
         if rank != 0:
             return 0
-        missing = [t.key for t in pending_tasks(plan)]
+        missing_tasks = pending_tasks(plan)
+        missing = [t.key for t in missing_tasks]
         if missing:
             log.write(f"build incomplete: {len(missing)} task(s) missing: {', '.join(missing)}")
             print(f"gcmc build: {len(missing)} of {len(plan.tasks)} task(s) failed or missing "
                   f"({', '.join(missing[:8])}{'...' if len(missing) > 8 else ''}); see "
                   f"{log.path}. Rerun the same command to retry them.", file=sys.stderr)
+            for t in missing_tasks[:8]:  # every rank's failures, with their coordinates
+                print(f"  {_failure_line(plan, t)}", file=sys.stderr)
             return 1
         data, fits = assemble_kernel(plan, version)
         path = write_kernel(data, cfg.output)
@@ -115,6 +121,19 @@ def _run(args: argparse.Namespace, size: int, rank: int) -> int:
     finally:
         if rank == 0:
             lock.release()
+
+
+def _failure_line(plan, task) -> str:  # noqa: ANN001
+    import json
+
+    from ..build import failure_path
+
+    try:
+        return json.loads(failure_path(plan, task).read_text())["error"]
+    except (OSError, ValueError, KeyError):
+        t = plan.temperatures[task.t_index].temperature_K
+        h = plan.config.widths_H_nm[task.w_index]
+        return f"task {task.key} (T = {t:g} K, H = {h:g} nm): not run"
 
 
 def _summary(plan, data, fits, report, path, seconds) -> None:  # noqa: ANN001
