@@ -249,7 +249,7 @@ class PoreModel:
             return self.volume_nm3
         return self.box_nm * self.box_nm * max(self.internal_width_nm, 0.0)
 
-    def describe(self) -> dict[str, Any]:
+    def describe(self, slab_tail: bool = True) -> dict[str, Any]:
         sf = self.solid_fluid
         return {
             "probe": self.probe.name,
@@ -264,5 +264,9 @@ class PoreModel:
             "width_H_nm": self.width_nm if self.geometry == SLIT else None,
             "width_w_nm": self.internal_width_nm if self.geometry == SLIT else None,
             "pore_volume_nm3": self.pore_volume_nm3,
-            "tail_correction": "homogeneous" if self.geometry == BULK else "none",
+            "tail_correction": (
+                "homogeneous (Allen & Tildesley)"
+                if self.geometry == BULK
+                else ("slab (Janecek 2006) beyond r_c" if slab_tail else "none")
+            ),
         }

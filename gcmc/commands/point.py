@@ -196,7 +196,7 @@ def run(args: argparse.Namespace) -> int:
         outcome = simulate_point(model, state, settings, args.seed, progress=bar.update)
     r = outcome.result
     payload = r.to_dict()
-    payload["model"] = model.describe()
+    payload["model"] = model.describe(slab_tail=settings.slab_tail)
     payload["compile_or_cache_load_seconds"] = compile_s
     if args.json:
         print(json.dumps(payload, default=_json_default))
