@@ -314,6 +314,34 @@ def test_load_positions_drops_overlaps_and_outside_molecules() -> None:
     np.testing.assert_allclose(again.positions(), box.positions(), rtol=0, atol=0)
 
 
+@pytest.mark.parametrize("geometry", [SLIT, BULK])
+def test_coincident_positions_are_an_overlap(geometry: str) -> None:
+    """A molecule exactly on top of another (distance 0, e.g. a duplicated line in a start
+    configuration) is an overlap like any pair closer than r_ov: it is dropped on loading and
+    the energy stays finite (bookkeeping identity with the one molecule kept)."""
+    box = slit_box(1, 5) if geometry == SLIT else bulk_lj_box(1, 5)
+    p = [1.0, 1.0, 0.6]
+    assert box.load_positions(np.array([p, p, [1.0, 1.0, 0.6 + 1e-12]])) == 1
+    assert np.all(np.isfinite(box.energy))
+    assert rel_diff(box.energy[0], reference_energy(box)[0]) < 1e-12 or box.energy[0] == 0.0
+    dff, dsf, overlap = E.trial_energy(
+        *p,
+        -1,
+        -1,
+        1,
+        -1,
+        box.fp,
+        box.ip,
+        box.cell_xyz,
+        box.cell_n,
+        box.nbr,
+        box.nbr_n,
+        box.zbin_n,
+        box.tail_table,
+    )
+    assert overlap
+
+
 def test_simulate_point_is_deterministic_in_its_seed() -> None:
     """The result is a pure function of (model, state, settings, seed): same seed, same numbers
     (CONVENTIONS: reproducible streams); a different seed gives a different trajectory."""

@@ -9,6 +9,7 @@ Each check names its reference beside it:
 - low-pressure slope of slit-pore isotherms: the exact Henry constant, a quadrature of the wall
   Boltzmann factor (gcmc.henry.pore_limit; e.g. Steele, The Interaction of Gases with Solid
   Surfaces, 1974), with the fluid-fluid second-order term bounded by an exact cluster integral;
+  and the isosteric heat from fluctuations against its exact Henry limit kT - <V>_w;
 - the ideal-gas limit <N> = beta f V and its Poisson distribution (exact);
 - detailed balance of biased (Rosenbluth, k-trial) insertion: the same <N> as plain insertion
   (Frenkel & Smit, Understanding Molecular Simulation, 2nd ed., ch. 13), exactly beta f V in
@@ -41,7 +42,7 @@ from gcmc.potentials import overlap_distance_nm, wall_potential_k
 from gcmc.rng import seed_state
 from gcmc.sampler import SamplingSettings, ThermoState, simulate_point
 from gcmc.simulation import Box
-from gcmc.units import BOLTZMANN_J_PER_K, NM3_PER_M3, activity_per_nm3
+from gcmc.units import BOLTZMANN_J_PER_K, NM3_PER_M3, activity_per_nm3, kelvin_to_kj_per_mol
 
 pytestmark = pytest.mark.usefixtures("engine")
 
@@ -247,39 +248,69 @@ def test_bulk_liquid_truncation_effect_is_below_the_errors() -> None:
 # =============================================================================================
 
 
-def mayer_slab_integral(
+def _slab_integrals(
     epsilon_k: float, sigma_nm: float, temperature_k: float, dz: np.ndarray
-) -> np.ndarray:
-    """F(dz) = int d^2s f(sqrt(s^2 + dz^2)) = 2 pi int_|dz|^inf r f(r) dr, f = e^(-beta u) - 1,
-    for the full LJ pair (the engine's truncated pair plus its slab tail approximates it)."""
+) -> tuple[np.ndarray, np.ndarray]:
+    """Laterally integrated pair functions of the full LJ pair at height difference dz:
+
+    F(dz) = int d^2s f(r) = 2 pi int_|dz|^inf r f(r) dr, with f = exp(-beta u) - 1 (Mayer), and
+    E(dz) = int d^2s u e^(-beta u) = 2 pi int_|dz|^inf r u(r) exp(-beta u(r)) dr
+    (using r^2 = s^2 + dz^2). The engine's truncated pair plus its slab tail approximates the
+    full pair: beyond r_c both give -beta u and u to first order in the (tiny) beta u there.
+    """
     r = np.geomspace(1e-3 * sigma_nm, 60.0 * sigma_nm, 200_001)
     s6 = (sigma_nm / r) ** 6
-    bu = np.minimum(4.0 * epsilon_k / temperature_k * (s6 * s6 - s6), 700.0)
-    y = r * np.expm1(-bu)
-    seg = 0.5 * (y[1:] + y[:-1]) * np.diff(r)
-    tail = np.concatenate([np.cumsum(seg[::-1])[::-1], [0.0]])  # int_r^inf r f dr
+    u = 4.0 * epsilon_k * (s6 * s6 - s6)
+    bu = np.minimum(u / temperature_k, 700.0)
+
+    def from_r_to_inf(y: np.ndarray) -> np.ndarray:
+        seg = 0.5 * (y[1:] + y[:-1]) * np.diff(r)
+        return np.concatenate([np.cumsum(seg[::-1])[::-1], [0.0]])
+
     a = np.abs(dz)
-    # below r[0], f = -1 exactly: int_a^r0 (-r) dr
-    return (
-        2.0 * math.pi * (np.interp(a, r, tail) - np.where(a < r[0], 0.5 * (r[0] ** 2 - a**2), 0.0))
-    )
+    # below r[0] = 1e-3 sigma, f = -1 and u exp(-beta u) = 0 to machine precision
+    f_part = np.interp(a, r, from_r_to_inf(r * np.expm1(-bu)))
+    f_part -= np.where(a < r[0], 0.5 * (r[0] ** 2 - a**2), 0.0)
+    e_part = np.interp(a, r, from_r_to_inf(r * u * np.exp(-bu)))
+    return 2.0 * math.pi * f_part, 2.0 * math.pi * e_part
 
 
-def second_order_coefficient(model: PoreModel, temperature_k: float) -> float:
-    """c with <N>/(z Q1) = 1 + c <N>/A + O(z^2): the fluid-fluid correction to the Henry law.
+@dataclass(frozen=True)
+class HenryExpansion:
+    """The slit pore's low-density expansion, from quadratures of the wall potential V(z).
 
-    From the activity expansion <N> = z Q1 + z^2 (Q2 - Q1^2) + ... (exact; e.g. Hill,
-    Statistical Mechanics, ch. 5), Q1 = A int w dz, Q2 - Q1^2 = A int int w w' F(z - z'),
-    w = exp(-beta V(z)): c = int int w w' F / (int w)^2.
+    Activity expansion of the grand partition function (exact; e.g. Hill, Statistical
+    Mechanics, 1956, ch. 5), per area A, with w = exp(-beta V):
+      <N> = z A I (1 + c_n <N>/A + ...),                I = int w dz,
+      cov(U, N)/var(N) = (d<U>/d<N>)_T = <V>_w + c_u <N>/A + ...,
+    with c_n = int int w w' F / I^2 and
+    c_u = int int w w' [(V + V' - 2 <V>_w) F + E] / I^2 (F, E from _slab_integrals).
+    The Henry-limit isosteric heat is q_st = kT - <V>_w (Nicholson & Parsonage 1982, the
+    fluctuation formula with independent molecules).
     """
+
+    c_n: float  # nm^2
+    c_u: float  # K nm^2
+    mean_wall_energy_k: float  # <V>_w
+
+
+def henry_expansion(model: PoreModel, temperature_k: float) -> HenryExpansion:
     h = model.width_nm
-    z = np.linspace(0.0, h, 901)[1:-1]
+    zf = np.linspace(0.0, h, 20_001)[1:-1]  # fine grid for <V>_w
+    vf = wall_potential_k(model, zf)
+    wf = np.exp(-(vf - vf.min()) / temperature_k)
+    vbar = float(np.sum(vf * wf) / np.sum(wf))
+    z = np.linspace(0.0, h, 901)[1:-1]  # pair integrals
     v = wall_potential_k(model, z)
     w = np.exp(-(v - v.min()) / temperature_k)
-    f = mayer_slab_integral(
+    ww = w[:, None] * w[None, :]
+    f, e = _slab_integrals(
         model.probe.epsilon_k, model.probe.sigma_nm, temperature_k, z[:, None] - z[None, :]
     )
-    return float(np.sum(w[:, None] * w[None, :] * f) / np.sum(w) ** 2)
+    norm = np.sum(w) ** 2
+    c_n = float(np.sum(ww * f) / norm)
+    c_u = float(np.sum(ww * ((v[:, None] + v[None, :] - 2 * vbar) * f + e)) / norm)
+    return HenryExpansion(c_n=c_n, c_u=c_u, mean_wall_energy_k=vbar)
 
 
 def has_single_minimum(model: PoreModel) -> bool:
@@ -297,39 +328,49 @@ HENRY_CASES = [
     ("methane", 298.15, 2.00),
 ]
 
-#: Mean number of molecules in the Henry runs, and the largest fluid-fluid correction allowed.
+#: Mean number of molecules in the Henry runs, and the largest fluid-fluid correction allowed
+#: (relative, to <N> and to q_st): the box area is made large enough for both.
 HENRY_N, HENRY_MAX_SECOND_ORDER = 10.0, 0.0025
+
+
+@dataclass(frozen=True)
+class HenryRun:
+    ratio: float  # N_sim / (z A I): the simulated slope over the exact Henry constant
+    ratio_err: float
+    ratio_pred: float  # 1 + c_n N / A
+    q_sim: float  # kJ/mol, from fluctuations
+    q_err: float
+    q_henry: float  # kT - <V>_w, kJ/mol
+    q_pred: float  # kT - <V>_w - c_u N/A, kJ/mol
+    edge_nm: float
 
 
 def run_henry(
     probe_name: str, temperature_k: float, width_nm: float, production: int, seed: int
-) -> tuple[float, float, float, object]:
-    """(N_sim / (z Q1), its stderr, predicted 1 + c N/A, result) in a box whose area makes the
-    fluid-fluid correction c N / A at most HENRY_MAX_SECOND_ORDER."""
+) -> HenryRun:
     probe = get_probe(probe_name)
     rc = 3.0 * probe.sigma_nm
-    trial = PoreModel(
-        probe=probe,
-        solid=default_solid(),
-        geometry=SLIT,
-        cutoff_nm=rc,
-        box_nm=2.5 * rc,
-        width_nm=width_nm,
-    )
-    c = second_order_coefficient(trial, temperature_k)
-    edge = max(2.5 * rc, math.sqrt(HENRY_N * abs(c) / HENRY_MAX_SECOND_ORDER))
-    model = PoreModel(
-        probe=probe,
-        solid=default_solid(),
-        geometry=SLIT,
-        cutoff_nm=rc,
-        box_nm=edge,
-        width_nm=width_nm,
-    )
+
+    def slit(edge: float) -> PoreModel:
+        return PoreModel(
+            probe=probe,
+            solid=default_solid(),
+            geometry=SLIT,
+            cutoff_nm=rc,
+            box_nm=edge,
+            width_nm=width_nm,
+        )
+
+    x = henry_expansion(slit(2.5 * rc), temperature_k)
+    q_henry_k = temperature_k - x.mean_wall_energy_k
+    area = HENRY_N * max(abs(x.c_n), abs(x.c_u) / abs(q_henry_k)) / HENRY_MAX_SECOND_ORDER
+    edge = max(2.5 * rc, math.sqrt(area))
+    model = slit(edge)
     limit = pore_limit(model, temperature_k)
     assert limit.accessible
     z = HENRY_N / (edge * edge * limit.boltzmann_integral_nm)
     f = fugacity_pa(z, temperature_k)
+    # The bulk gas is ideal at these fugacities (bulk density < 1e-3 nm^-3): h_res = 0.
     state = ThermoState(temperature_K=temperature_k, fugacity_Pa=f)
     # Only insertions and deletions: in the Henry regime displacements do not decorrelate N.
     settings = SamplingSettings(
@@ -342,18 +383,33 @@ def run_henry(
     r = simulate_point(model, state, settings, seed).result
     # slope of the isotherm: density per pore volume per Pa, against K_H
     ratio = r.density_per_nm3 / f / limit.henry_per_nm3_per_pa
-    return ratio, ratio * r.molecules_stderr / r.molecules_mean, 1.0 + c * HENRY_N / edge**2, r
+    return HenryRun(
+        ratio=ratio,
+        ratio_err=ratio * r.molecules_stderr / r.molecules_mean,
+        ratio_pred=1.0 + x.c_n * HENRY_N / edge**2,
+        q_sim=r.isosteric_heat_kJ_per_mol,
+        q_err=r.isosteric_heat_kJ_per_mol_stderr,
+        q_henry=kelvin_to_kj_per_mol(q_henry_k),
+        q_pred=kelvin_to_kj_per_mol(q_henry_k - x.c_u * HENRY_N / edge**2),
+        edge_nm=edge,
+    )
 
 
-def check_henry(ratio: float, err: float, predicted: float, max_3se: float) -> None:
-    # Fluid-fluid effects at this loading: below 0.25 % by the exact second-order term.
-    assert abs(predicted - 1.0) <= HENRY_MAX_SECOND_ORDER + 1e-12
-    assert 3 * err < max_3se, err  # enough sampling: 3 standard errors below the bound
+def check_henry(h: HenryRun, max_3se: float) -> None:
+    # Fluid-fluid effects at this loading: at most 0.25 % by the exact second-order terms.
+    assert abs(h.ratio_pred - 1.0) <= HENRY_MAX_SECOND_ORDER + 1e-12
+    assert abs(h.q_pred / h.q_henry - 1.0) <= HENRY_MAX_SECOND_ORDER + 1e-12
+    assert 3 * h.ratio_err < max_3se, h.ratio_err  # enough sampling: 3 stderr below the bound
     # Exact Henry constant (quadrature, gcmc.henry.pore_limit): within 2 % ...
-    assert abs(ratio - 1.0) <= 0.02, ratio
+    assert abs(h.ratio - 1.0) <= 0.02, h
     # ... and, sharper, within 3 standard errors of the Henry law with its exact second-order
     # fluid-fluid term.
-    assert abs(ratio - predicted) <= 3 * err, (ratio, err, predicted)
+    assert abs(h.ratio - h.ratio_pred) <= 3 * h.ratio_err, h
+    # Isosteric heat from the fluctuations (jackknife error) against the exact Henry-limit value
+    # kT - <V>_w plus its second-order term: within 3 standard errors, plus 2e-4 relative for the
+    # quadratures and the third-order terms (~(0.25 %)^2).
+    assert math.isfinite(h.q_err) and h.q_err < 5e-3 * h.q_henry, h
+    assert abs(h.q_sim - h.q_pred) <= 3 * h.q_err + 2e-4 * h.q_henry, h
 
 
 def test_henry_narrow_pores_have_a_single_minimum() -> None:
@@ -374,8 +430,7 @@ def test_henry_narrow_pores_have_a_single_minimum() -> None:
 def test_low_pressure_slope_matches_exact_henry_constant(
     probe_name: str, temperature_k: float, width_nm: float
 ) -> None:
-    ratio, err, predicted, _ = run_henry(probe_name, temperature_k, width_nm, 8_000_000, 7)
-    check_henry(ratio, err, predicted, max_3se=0.01)
+    check_henry(run_henry(probe_name, temperature_k, width_nm, 8_000_000, 7), max_3se=0.01)
 
 
 @pytest.mark.slow
@@ -386,8 +441,8 @@ def test_low_pressure_slope_matches_exact_henry_constant(
 def test_low_pressure_slope_matches_exact_henry_constant_long(
     probe_name: str, temperature_k: float, width_nm: float
 ) -> None:
-    ratio, err, predicted, _ = run_henry(probe_name, temperature_k, width_nm, 50_000_000, 77)
-    check_henry(ratio, err, predicted, max_3se=0.004)
+    h = run_henry(probe_name, temperature_k, width_nm, 50_000_000, 77)
+    check_henry(h, max_3se=0.004)
 
 
 # =============================================================================================
@@ -607,6 +662,7 @@ def loading(
     k: int = 1,
     edge: float = 3.8,
     start: np.ndarray | None = None,
+    check: bool = True,
 ) -> object:
     probe = get_probe(probe_name)
     model = PoreModel(
@@ -627,7 +683,8 @@ def loading(
     out = simulate_point(
         model, ThermoState(temperature_K=t, fugacity_Pa=f), settings, seed, start=start
     )
-    assert no_flag(out.result, "error_unreliable", "drift"), out.result.flags
+    if check:  # a run whose loading is compared needs a trustworthy error
+        assert no_flag(out.result, "error_unreliable", "drift"), out.result.flags
     return out
 
 
@@ -648,19 +705,42 @@ def test_default_cutoff_with_slab_tail_matches_longer_cutoff() -> None:
 
 
 @pytest.mark.slow
-def test_default_cutoff_matches_longer_cutoff_argon_87k_filled_pore() -> None:
-    """Subcritical: argon at 87.3 K in a filled 1.8 nm pore (f = 0.5 of the reference EOS's
-    saturation fugacity, CoolProp): 3 sigma + slab tail vs 5 sigma + slab tail, same loading
-    within 3 combined standard errors; biased insertion (k = 16) for the dense liquid."""
+def test_default_cutoff_matches_longer_cutoff_subcritical_argon_filled_pore() -> None:
+    """Subcritical: argon at 110 K (0.73 T_c) in a filled 1.8 nm pore (rho sigma^3 ~ 0.81,
+    f = 0.5 of the saturation fugacity of the reference EOS, CoolProp): 3 sigma + slab tail vs
+    5 sigma + slab tail give the same loading within 3 standard errors (Student t); biased
+    insertion (k = 16) for the dense liquid.
+
+    The loading of this confined liquid has a slow mode (block errors show no plateau within
+    1.6e7 moves, measured; at 87.3 K it is slower still), so the error comes from the spread of
+    independent replicas (own seeds, each from the same filled configuration) instead."""
     from gcmc.eos import make_eos as eos_for
 
     eos = eos_for("reference", get_probe("argon"))
-    t = 87.3
+    t = 110.0
     f = 0.5 * eos.state(t, eos.saturation_pressure(t) * 0.999).fugacity_Pa
     args = ("argon", t, f, 1.8)
-    fill = loading(*args, 3.0, True, 2_000_000, 30, k=16).positions  # the filled pore
-    a = loading(*args, 3.0, True, 8_000_000, 31, k=16, start=fill).result
-    b = loading(*args, 5.0, True, 8_000_000, 32, k=16, start=fill).result
-    e = math.hypot(a.molecules_stderr, b.molecules_stderr)
-    assert e / b.molecules_mean < 0.005
-    assert abs(a.molecules_mean - b.molecules_mean) <= 3 * e
+    fill = loading(*args, 3.0, True, 4_000_000, 30, k=16, check=False).positions
+    reps = 4
+    means = {}
+    for rc in (3.0, 5.0):
+        means[rc] = np.array(
+            [
+                loading(
+                    *args,
+                    rc,
+                    True,
+                    3_000_000,
+                    40 + seed + int(10 * rc),
+                    k=16,
+                    start=fill,
+                    check=False,
+                ).result.molecules_mean
+                for seed in range(reps)
+            ]
+        )
+    a, b = means[3.0], means[5.0]
+    e = math.sqrt(a.var(ddof=1) / reps + b.var(ddof=1) / reps)
+    q = float(student_t.ppf(1 - 0.0027 / 2, 2 * reps - 2))  # 3-sigma level, 6 dof
+    assert e / b.mean() < 0.005
+    assert abs(a.mean() - b.mean()) <= q * e, (a, b)

@@ -3,6 +3,8 @@
 
 from __future__ import annotations
 
+import contextlib
+import io
 import json
 import math
 import os
@@ -84,17 +86,34 @@ def check_payload(d: dict, geometry: str, width: float | None) -> None:
     assert d["moves"] == 60_000 and d["seconds"] > 0
 
 
-def test_point_json_in_process(capsys: pytest.CaptureFixture[str]) -> None:
-    code, out, err = run_main(SLIT_ARGS, capsys)
-    assert code == 0, err
-    d = json.loads(out)
+@pytest.fixture(scope="module")
+def slit_record(engine: float) -> dict:
+    """One in-process `gcmc point --json` run in a slit pore, shared by the tests below."""
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main(SLIT_ARGS)
+    assert code == 0, err.getvalue()
+    return json.loads(out.getvalue())
+
+
+def test_point_json_in_process(slit_record: dict) -> None:
+    d = slit_record
     check_payload(d, "slit", 1.2)
     # Reference EOS (CoolProp) for methane at 2 MPa: phi < 1, so f < p.
     assert d["eos"] == "reference"
     assert 0.9 * 2e6 < d["fugacity_Pa"] < 2e6
+    assert d["model"]["width_H_nm"] == 1.2
+    assert d["model"]["width_w_nm"] == pytest.approx(1.2 - default_solid().sigma_nm)
 
 
-def test_point_json_subprocess_matches_in_process(capsys: pytest.CaptureFixture[str]) -> None:
+def test_point_json_records_the_tail_correction_used(slit_record: dict) -> None:
+    """The record must say which tail correction the run used (CONVENTIONS: the kernel says
+    which thing it means): the slab tail (Janecek 2006) in a slit by default."""
+    assert "slab" in slit_record["model"]["tail_correction"].lower()
+    # regression: the record said "none" for slit pores before commit 683b3cc
+
+
+def test_point_json_subprocess_matches_in_process(slit_record: dict) -> None:
     """The same arguments give the same numbers in a fresh interpreter (one seed, one
     result), and stdout is exactly one JSON object."""
     env = dict(os.environ, PYTHONPATH=str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", ""))
@@ -109,9 +128,7 @@ def test_point_json_subprocess_matches_in_process(capsys: pytest.CaptureFixture[
     assert proc.returncode == 0, proc.stderr
     sub = json.loads(proc.stdout)
     check_payload(sub, "slit", 1.2)
-    code, out, _ = run_main(SLIT_ARGS, capsys)
-    assert code == 0
-    here = json.loads(out)
+    here = slit_record
     for key in (
         "molecules_mean",
         "molecules_stderr",
@@ -149,6 +166,7 @@ def test_point_bulk_ideal_gas_limit(capsys: pytest.CaptureFixture[str]) -> None:
     d = json.loads(out)
     check_payload(d, "bulk", None)
     assert d["fugacity_Pa"] == p
+    assert "homogeneous" in d["model"]["tail_correction"]
     assert d["bulk_density_per_nm3"] == pytest.approx(
         p / (BOLTZMANN_J_PER_K * t) / NM3_PER_M3, rel=1e-12
     )
