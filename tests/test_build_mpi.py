@@ -13,6 +13,9 @@ from typing import Any
 
 import pytest
 from test_build_resume import (
+    RESUME,
+    RESUME_NAME,
+    RESUME_TASKS,
     TINY_NAME,
     TINY_TASKS,
     assert_same_kernel,
@@ -49,6 +52,11 @@ pytestmark = [
 @pytest.fixture
 def reference(tmp_path_factory: pytest.TempPathFactory) -> Any:
     return reference_kernel(tmp_path_factory)
+
+
+@pytest.fixture
+def resume_reference(tmp_path_factory: pytest.TempPathFactory) -> Any:
+    return reference_kernel(tmp_path_factory, "resume")
 
 
 def _rank_tasks(cfg: Path) -> dict[str, int]:
@@ -96,16 +104,18 @@ def test_mpiexec_2_gives_the_one_worker_kernel(tmp_path: Path, reference: Any) -
     assert set(ranks.values()) == {0, 1}, f"both ranks took tasks: {ranks}"
 
 
-def test_mpi_kill_9_then_mpi_rerun_gives_the_same_kernel(tmp_path: Path, reference: Any) -> None:
-    cfg = copy_config(tmp_path)
+def test_mpi_kill_9_then_mpi_rerun_gives_the_same_kernel(
+    tmp_path: Path, resume_reference: Any
+) -> None:
+    cfg = copy_config(tmp_path, RESUME)
     proc = start_build(cfg, mpi_ranks=2)
-    done = kill_when_tasks_on_disk(proc, cfg, TINY_TASKS)
+    done = kill_when_tasks_on_disk(proc, cfg, RESUME_TASKS, RESUME_NAME)
     res = run_build(cfg, mpi_ranks=2)
     check_ok(res)
     m = re.search(r"\((\d+) task\(s\) reused from disk\)", res.stdout)
     assert m and int(m.group(1)) >= done, res.stdout
-    assert len(kernel_files(cfg)) == 1
-    assert_same_kernel(reference, read_kernel(cfg))
+    assert len(kernel_files(cfg, RESUME_NAME)) == 1
+    assert_same_kernel(resume_reference, read_kernel(cfg, RESUME_NAME))
 
 
 @pytest.mark.slow

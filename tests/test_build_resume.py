@@ -2,7 +2,8 @@
 build on the same output, a failing task and a bad config.
 
 Every build here runs the real command line (``python -m gcmc.cli build``) in a subprocess on
-a copy of ``tests/configs/tiny.toml`` (5 tasks, a few seconds of simulation) inside pytest's
+a copy of ``tests/configs/tiny.toml`` (5 tasks, about a second of simulation) or, where a
+build must be caught mid-run, ``tests/configs/resume.toml`` (6 tasks, ~15 s), inside pytest's
 ``tmp_path``. "Identical" means :func:`assert_same_kernel`: every field of the
 :class:`gcmc.kernel_data.KernelData` read back by :func:`gcmc.reader.open_kernel` is equal bit
 for bit (numpy arrays: same dtype, shape and bytes, so NaNs must match too; fit records field
@@ -38,6 +39,11 @@ CONFIGS = Path(__file__).resolve().parent / "configs"
 TINY = CONFIGS / "tiny.toml"
 TINY_NAME = "tiny-methane"
 TINY_TASKS = 5
+#: A longer build (~15 s of simulation) for the kill -9 and lock tests: between its first task
+#: file and its end there are seconds, not milliseconds, to interrupt it.
+RESUME = CONFIGS / "resume.toml"
+RESUME_NAME = "resume-methane"
+RESUME_TASKS = 6
 #: Fields of KernelData that record time, place or host and legitimately differ between builds.
 TIMING_FIELDS = {"task_seconds"}
 POINT_TIMING_FIELDS = {"seconds"}
@@ -119,6 +125,13 @@ def process_tree(root: int) -> set[int]:
             tree.add(pid)
             todo.extend(children.get(pid, []))
     return tree
+
+
+def _cmdline(pid: int) -> str:
+    try:
+        return Path(f"/proc/{pid}/cmdline").read_bytes().replace(b"\0", b" ").decode()
+    except OSError:
+        return ""
 
 
 def _signal(pids: set[int], sig: int) -> None:
@@ -250,21 +263,30 @@ def assert_same_kernel(a: Any, b: Any) -> None:
 _REFERENCE: dict[str, Any] = {}
 
 
-def reference_kernel(factory: pytest.TempPathFactory) -> Any:
-    """The uninterrupted 1-worker build of tiny.toml, built once per test session."""
-    if "tiny" not in _REFERENCE:
-        cfg = copy_config(factory.mktemp("reference"))
-        res = run_build(cfg, "--workers", "1")
-        check_ok(res)
-        data = read_kernel(cfg)
-        assert data.points["adsorption"]["density_per_nm3"].shape == (1, TINY_TASKS, 5)
-        _REFERENCE["tiny"] = data
-    return _REFERENCE["tiny"]
+def reference_kernel(factory: pytest.TempPathFactory, which: str = "tiny") -> Any:
+    """The uninterrupted build of tiny.toml (1 worker) or resume.toml (2 workers: its equality
+    with 1 worker is what the tiny tests check), built once per test session."""
+    if which not in _REFERENCE:
+        src, name, n_tasks, workers = {
+            "tiny": (TINY, TINY_NAME, TINY_TASKS, "1"),
+            "resume": (RESUME, RESUME_NAME, RESUME_TASKS, "2"),
+        }[which]
+        cfg = copy_config(factory.mktemp(f"reference-{which}"), src)
+        check_ok(run_build(cfg, "--workers", workers))
+        data = read_kernel(cfg, name)
+        assert data.points["adsorption"]["density_per_nm3"].shape == (1, n_tasks, 5)
+        _REFERENCE[which] = data
+    return _REFERENCE[which]
 
 
 @pytest.fixture
 def reference(tmp_path_factory: pytest.TempPathFactory) -> Any:
     return reference_kernel(tmp_path_factory)
+
+
+@pytest.fixture
+def resume_reference(tmp_path_factory: pytest.TempPathFactory) -> Any:
+    return reference_kernel(tmp_path_factory, "resume")
 
 
 # --- tests -------------------------------------------------------------------------------------
@@ -286,36 +308,38 @@ def test_comparison_sees_a_one_bit_change(reference: Any) -> None:
 
 def test_two_workers_give_the_one_worker_kernel(tmp_path: Path, reference: Any) -> None:
     cfg = copy_config(tmp_path)
-    res = run_build(cfg, "--workers", "2")
-    check_ok(res)
-    assert "2 worker(s)" in res.stdout
-    assert_same_kernel(reference, read_kernel(cfg))
-    # the task ran in two different worker processes (the pool really was used)
-    log = (output_dir(cfg) / f"{TINY_NAME}.log").read_text()
-    assert len(re.findall(r"task t\d{3}_w\d{3} done", log)) == TINY_TASKS
-
-
-def test_kill_9_then_rerun_gives_the_same_kernel(tmp_path: Path, reference: Any) -> None:
-    cfg = copy_config(tmp_path)
     proc = start_build(cfg, "--workers", "2")
-    done = kill_when_tasks_on_disk(proc, cfg, TINY_TASKS)
-    lock = output_dir(cfg) / f"{TINY_NAME}.lock"
+    workers_seen = 0  # the pool really runs: two spawned worker processes at the same time
+    while proc.poll() is None:
+        kids = [_cmdline(pid) for pid in process_tree(proc.pid) - {proc.pid}]
+        workers_seen = max(workers_seen, sum("spawn_main" in c for c in kids))
+        time.sleep(0.1)
+    out, err = proc.communicate()
+    assert proc.returncode == 0, f"build failed:\n{out}\n{err}"
+    assert "2 worker(s)" in out
+    assert workers_seen == 2
+    assert_same_kernel(reference, read_kernel(cfg))
+
+
+def test_kill_9_then_rerun_gives_the_same_kernel(tmp_path: Path, resume_reference: Any) -> None:
+    cfg = copy_config(tmp_path, RESUME)
+    proc = start_build(cfg, "--workers", "2")
+    done = kill_when_tasks_on_disk(proc, cfg, RESUME_TASKS, RESUME_NAME)
+    lock = output_dir(cfg) / f"{RESUME_NAME}.lock"
     assert lock.exists(), "a killed build leaves its lock behind; the rerun must take it over"
     res = run_build(cfg, "--workers", "2")
     check_ok(res)
     m = re.search(r"\((\d+) task\(s\) reused from disk\)", res.stdout)
     assert m and int(m.group(1)) >= done, res.stdout
     assert not lock.exists()
-    assert_same_kernel(reference, read_kernel(cfg))
-    assert len(kernel_files(cfg)) == 1
+    assert_same_kernel(resume_reference, read_kernel(cfg, RESUME_NAME))
 
 
 def test_second_build_on_the_same_output_is_refused(tmp_path: Path) -> None:
-    # the first build must outlast the second's start-up (several seconds on a loaded
-    # machine): 10x longer ladders; it is killed once the second has been refused
-    text = TINY.read_text().replace("production_moves = 20000", "production_moves = 200000")
-    cfg = copy_config(tmp_path, text=text)
-    lock = output_dir(cfg) / f"{TINY_NAME}.lock"
+    # the first build must outlast the second's start-up (seconds on a loaded machine): the
+    # longer config; it is killed once the second has been refused
+    cfg = copy_config(tmp_path, RESUME)
+    lock = output_dir(cfg) / f"{RESUME_NAME}.lock"
     first = start_build(cfg, "--workers", "1")
     try:
         deadline = time.monotonic() + BUILD_TIMEOUT_S
