@@ -15,7 +15,16 @@ Data layout (all arrays owned by a :class:`gcmc.simulation.Box`):
 
 Cell capacity never overflows: no two molecules are ever closer than the overlap distance
 (moves that would make them so are rejected as overlaps), so a cell of side a holds at most
-sqrt(2) (a + r_ov)^3 / r_ov^3 molecules (close packing); the capacity is set to that bound.
+sqrt(2) (a + r_ov)^3 / r_ov^3 molecules (close packing); the capacity is that bound plus 8,
+so the pair loop may read a cell's slots up to the next multiple of 8 (stale or zero values,
+masked out).
+
+Speed (benchmarks/README.md, "Engine speed"): the helpers are inlined at the numba IR level
+into one move loop compiled without the reference-counting runtime (``_nrt=False``: it only
+borrows the caller's arrays), so the pair sums of a move run without calls or atomic
+refcount updates (the slab-tail sum stays a call: it keeps its own fastmath); the neighbour
+lists run nearest cells first, so the overlap test of a trial position usually stops in the
+home cell.
 
 The moves are the grand canonical ones with Metropolis acceptance (Norman & Filinov 1969;
 Frenkel & Smit, Understanding Molecular Simulation, 2nd ed., ch. 5):
@@ -66,17 +75,32 @@ N_IPARAMS = 8
 C_DISP_TRY, C_DISP_ACC, C_INS_TRY, C_INS_ACC, C_DEL_TRY, C_DEL_ACC = 0, 1, 2, 3, 4, 5
 N_COUNTERS = 6
 
+#: Added to a cell's pair sum for each pair closer than the overlap distance (see pair_energy).
+OVERLAP_FLAG = 1.0e100
+#: Floating-point flags of the move loop (and of the pair loop inlined into it): reassociation
+#: lets the pair sums vectorise; no finite-math assumptions (acceptance ratios may be inf).
+MOVE_FASTMATH = {"reassoc", "nsz", "arcp", "contract"}
+
 # energy indices: fluid-fluid (pairs within r_c, plus tails) and solid-fluid
 E_FF, E_SF = 0, 1
 
 
-@njit(cache=True, fastmath=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, fastmath=MOVE_FASTMATH, error_model="numpy", boundscheck=False,
+      inline="always")
 def pair_energy(x, y, z, c_home, skip_cell, skip_slot, fp, ip, cell_xyz, cell_n, nbr, nbr_n):
     """LJ energy (K) of a molecule at (x, y, z) in cell c_home with all molecules within r_c,
     skipping the one at (skip_cell, skip_slot) (itself, when it is already in the box).
 
     Returns (energy, overlap). overlap is True if any pair is closer than the overlap
     distance; the energy is then meaningless and the move is rejected.
+
+    Each cell's loop runs over its slots rounded up to a multiple of 8 (the capacity leaves
+    room, see the module docstring), the padding and the skipped slot masked by a select, so
+    that it compiles to whole SIMD vectors without a scalar remainder. An overlapping pair
+    adds OVERLAP_FLAG to the cell's sum (a sum of non-overlapping pairs is many orders of
+    magnitude smaller), so one reduction per cell gives both the energy and the overlap test.
+    Inlined (numba IR) into its callers; the move loop carries the reassociation flags the
+    vectorised sums need (MOVE_FASTMATH).
     """
     lx = fp[F_LX]
     ly = fp[F_LY]
@@ -92,47 +116,31 @@ def pair_energy(x, y, z, c_home, skip_cell, skip_slot, fp, ip, cell_xyz, cell_n,
     for k in range(nbr_n[c_home]):
         c = nbr[c_home, k]
         n = cell_n[c]
-        cx = cell_xyz[c, 0]
-        cy = cell_xyz[c, 1]
-        cz = cell_xyz[c, 2]
-        lo = n
-        hi = n
-        if c == skip_cell:
-            lo = skip_slot
-            hi = skip_slot + 1
-        rmin = 1.0e30
+        if n == 0:
+            continue
+        skip = (skip_slot + 1) * np.int64(c == skip_cell) - 1  # -1: nothing to skip
         e = 0.0
-        for j in range(lo):
-            dx = x - cx[j]
-            dy = y - cy[j]
-            dz = z - cz[j]
-            dx -= lx * math.floor(dx * ilx + 0.5)
-            dy -= ly * math.floor(dy * ily + 0.5)
-            dz -= periodic_z * lz * math.floor(dz * ilz + 0.5)
+        for j in range((n + 7) & -8):
+            dx = x - cell_xyz[c, 0, j]
+            dy = y - cell_xyz[c, 1, j]
+            dz = z - cell_xyz[c, 2, j]
+            dx -= lx * np.floor(dx * ilx + 0.5)
+            dy -= ly * np.floor(dy * ily + 0.5)
+            dz -= periodic_z * lz * np.floor(dz * ilz + 0.5)
             r2 = dx * dx + dy * dy + dz * dz
+            r2 = 1.0e30 if ((j == skip) | (j >= n)) else r2
             s2 = sig2 / r2
             s6 = s2 * s2 * s2
-            e += (s6 * s6 - s6) if r2 < rc2 else 0.0
-            rmin = min(rmin, r2)
-        for j in range(hi, n):
-            dx = x - cx[j]
-            dy = y - cy[j]
-            dz = z - cz[j]
-            dx -= lx * math.floor(dx * ilx + 0.5)
-            dy -= ly * math.floor(dy * ily + 0.5)
-            dz -= periodic_z * lz * math.floor(dz * ilz + 0.5)
-            r2 = dx * dx + dy * dy + dz * dz
-            s2 = sig2 / r2
-            s6 = s2 * s2 * s2
-            e += (s6 * s6 - s6) if r2 < rc2 else 0.0
-            rmin = min(rmin, r2)
-        if rmin < rov2:
+            # an overlapping pair contributes the flag only (its LJ term may be inf or NaN:
+            # r = 0 for coincident molecules), a pair beyond r_c nothing
+            e += OVERLAP_FLAG if r2 < rov2 else ((s6 * s6 - s6) if r2 < rc2 else 0.0)
+        if e >= 0.5 * OVERLAP_FLAG:
             return 0.0, True
         acc += e
     return fp[F_EPS4] * acc, False
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def cell_of(x, y, z, fp, ip):
     ix = min(int(x * fp[F_INV_CX]), ip[I_NCX] - 1)
     iy = min(int(y * fp[F_INV_CY]), ip[I_NCY] - 1)
@@ -140,12 +148,12 @@ def cell_of(x, y, z, fp, ip):
     return (iz * ip[I_NCY] + iy) * ip[I_NCX] + ix
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def zbin_of(z, fp, ip):
     return min(max(int(z * fp[F_INV_DZ]), 0), ip[I_NBINS] - 1)
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def wall_energy(z, fp, ip):
     if ip[I_SLIT] == 0:
         return 0.0
@@ -168,16 +176,17 @@ def _slit_wall(z, h, pre, s, d):
 @njit(cache=True, fastmath=True, error_model="numpy", boundscheck=False)
 def slab_tail_sum(b, zbin_n, tail_table, nbins):
     """sum_b' n_b' T[|b - b'|]: tail energy of a molecule in bin b with the profile beyond r_c."""
+    # two contiguous runs, bins at and below b and bins above; unsigned indices (all are >= 0)
+    # spare the negative-index wraparound, which would turn the loads into gathers
     acc = 0.0
-    for bb in range(nbins):
-        d = b - bb
-        if d < 0:
-            d = -d
-        acc += zbin_n[bb] * tail_table[d]
+    for bb in range(b + 1):
+        acc += zbin_n[np.uint64(b - bb)] * tail_table[bb]
+    for bb in range(1, nbins - b):
+        acc += zbin_n[np.uint64(b + bb)] * tail_table[bb]
     return acc
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def insertion_tail(b, n_now, fp, ip, zbin_n, tail_table):
     """Tail energy gained by adding one molecule in z bin b to n_now molecules."""
     if ip[I_SLIT] == 0:
@@ -187,7 +196,7 @@ def insertion_tail(b, n_now, fp, ip, zbin_n, tail_table):
     return fp[F_SLAB_C] * n_now + slab_tail_sum(b, zbin_n, tail_table, ip[I_NBINS])
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def trial_energy(x, y, z, skip_cell, skip_slot, n_others, skip_bin, fp, ip, cell_xyz, cell_n,
                  nbr, nbr_n, zbin_n, tail_table):
     """Energy of adding a molecule at (x, y, z) to the box, the molecule at (skip_cell,
@@ -209,7 +218,7 @@ def trial_energy(x, y, z, skip_cell, skip_slot, n_others, skip_bin, fp, ip, cell
     return uff + tail, usf, False
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def add_molecule(x, y, z, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n):
     i = ip[I_N]
     c = cell_of(x, y, z, fp, ip)
@@ -225,7 +234,7 @@ def add_molecule(x, y, z, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot
     ip[I_N] = i + 1
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def remove_molecule(i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n):
     c = pid_cell[i]
     s = pid_slot[i]
@@ -249,7 +258,7 @@ def remove_molecule(i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, z
     ip[I_N] = n_last
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def _wrap(v, length):
     if v >= length:
         v -= length
@@ -264,6 +273,19 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
               out_n, out_uff, out_usf, out_start, profile):
     """Run n_moves trial moves. Every sample_every moves, record N, U_ff, U_sf at
     out_*[out_start + k] and add the z-bin counts to ``profile``. Returns samples written."""
+    # trial positions, weights and energies of biased insertion, allocated here because the
+    # move loop runs without the runtime that allocates
+    scratch = np.empty((6, max(1, ip[I_KTRIALS])))
+    return _move_loop(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cell,
+                      pid_slot, nbr, nbr_n, zbin_n, tail_table, rng, energy, counters, out_n,
+                      out_uff, out_usf, out_start, profile, scratch)
+
+
+@njit(cache=True, fastmath=MOVE_FASTMATH, error_model="numpy", boundscheck=False, _nrt=False)
+def _move_loop(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot,
+               nbr, nbr_n, zbin_n, tail_table, rng, energy, counters, out_n, out_uff, out_usf,
+               out_start, profile, scratch):
+    """The body of run_moves (scratch: float64[6, >= k_trials])."""
     lx = fp[F_LX]
     ly = fp[F_LY]
     lz = fp[F_LZ]
@@ -275,12 +297,12 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
     slit = ip[I_SLIT] == 1
     k_trials = ip[I_KTRIALS]
     nbins = ip[I_NBINS]
-    tx = np.empty(k_trials)
-    ty = np.empty(k_trials)
-    tz = np.empty(k_trials)
-    tw = np.empty(k_trials)
-    tff = np.empty(k_trials)
-    tsf = np.empty(k_trials)
+    tx = scratch[0]
+    ty = scratch[1]
+    tz = scratch[2]
+    tw = scratch[3]
+    tff = scratch[4]
+    tsf = scratch[5]
     written = 0
     for move in range(n_moves):
         n = ip[I_N]

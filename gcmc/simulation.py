@@ -51,6 +51,7 @@ class Box:
         ncell = nc[0] * nc[1] * nc[2]
         a = [length / n for length, n in zip((lx, ly, lz), nc, strict=True)]
         r_ov = overlap_distance_nm(eps, sig, self.temperature_k)
+        # close-packing bound + 8: the pair loop reads slots up to the next multiple of 8
         cap = int(math.sqrt(2.0) * (a[0] + r_ov) * (a[1] + r_ov) * (a[2] + r_ov) / r_ov**3) + 8
 
         fp = np.zeros(E.N_FPARAMS)
@@ -205,31 +206,36 @@ class Box:
 
 def _neighbour_cells(nc: list[int], a: list[float], rc: float, m: int,
                      periodic_z: bool) -> tuple[np.ndarray, np.ndarray]:
-    """The distinct cells whose boxes come within r_c of each cell (itself included)."""
+    """The distinct cells whose boxes come within r_c of each cell: itself first, then the
+    others nearest first."""
     ncx, ncy, ncz = nc
+    # offsets nearest first (the home cell leads), so that the overlap test of a trial
+    # position usually stops in the first cells it scans
+    offsets = [(dx, dy, dz) for dz in range(-m, m + 1) for dy in range(-m, m + 1)
+               for dx in range(-m, m + 1)]
+    stencil = sorted(offsets, key=lambda d: (d[0] ** 2 + d[1] ** 2 + d[2] ** 2, d[2], d[1],
+                                             d[0]))
     lists = []
     for iz in range(ncz):
         for iy in range(ncy):
             for ix in range(ncx):
                 found: list[int] = []
-                for dz in range(-m, m + 1):
+                for dx, dy, dz in stencil:
                     jz = iz + dz
                     if periodic_z:
                         jz %= ncz
                     elif jz < 0 or jz >= ncz:
                         continue
-                    for dy in range(-m, m + 1):
-                        jy = (iy + dy) % ncy
-                        for dx in range(-m, m + 1):
-                            jx = (ix + dx) % ncx
-                            gap2 = sum((max(0, abs(d) - 1) * side) ** 2
-                                       for d, side in zip((dx, dy, dz), a, strict=True))
-                            if gap2 >= rc * rc:
-                                continue
-                            j = (jz * ncy + jy) * ncx + jx
-                            if j not in found:
-                                found.append(j)
-                lists.append(sorted(found))
+                    jy = (iy + dy) % ncy
+                    jx = (ix + dx) % ncx
+                    gap2 = sum((max(0, abs(d) - 1) * side) ** 2
+                               for d, side in zip((dx, dy, dz), a, strict=True))
+                    if gap2 >= rc * rc:
+                        continue
+                    j = (jz * ncy + jy) * ncx + jx
+                    if j not in found:
+                        found.append(j)
+                lists.append(found)  # home cell first, then outwards
     width = max(len(x) for x in lists)
     nbr = np.full((len(lists), width), -1, dtype=np.int64)
     nbr_n = np.zeros(len(lists), dtype=np.int64)
