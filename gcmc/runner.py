@@ -17,11 +17,18 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .build import BuildPlan, Task, failure_path, learned_order, make_plan, pending_tasks, \
-    run_task_safely, task_path
+from .build import (
+    BuildPlan,
+    Task,
+    failure_path,
+    learned_order,
+    make_plan,
+    pending_tasks,
+    run_task_safely,
+    task_path,
+)
 from .config import load_config
 from .errors import InputError
-
 
 # --- MPI detection ---------------------------------------------------------------------------
 

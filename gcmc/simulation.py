@@ -13,8 +13,13 @@ import numpy as np
 
 from . import engine as E
 from .model import BULK, SLIT, PoreModel
-from .potentials import OVERLAP_BETA_U, homogeneous_tail_constant, overlap_distance_nm, \
-    slab_tail_pair, steele_prefactor_k
+from .potentials import (
+    OVERLAP_BETA_U,
+    homogeneous_tail_constant,
+    overlap_distance_nm,
+    slab_tail_pair,
+    steele_prefactor_k,
+)
 
 #: z-bin width for the density profile and the slab tail correction, in probe diameters.
 ZBIN_SIGMA = 0.02

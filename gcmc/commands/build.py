@@ -59,8 +59,14 @@ def run(args: argparse.Namespace) -> int:
 def _run(args: argparse.Namespace, size: int, rank: int) -> int:
     from ..assemble import assemble_kernel
     from ..library import next_version, write_kernel
-    from ..runner import BuildLock, BuildLog, load_plan, progress_bar, run_tasks_local, \
-        run_tasks_mpi
+    from ..runner import (
+        BuildLock,
+        BuildLog,
+        load_plan,
+        progress_bar,
+        run_tasks_local,
+        run_tasks_mpi,
+    )
 
     t_start = time.perf_counter()
     plan = load_plan(args.config)  # validates everything before anything is written
