@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 
 from .errors import InputError
-from .fits import DEFAULT_FORMS as FIT_DEFAULT_FORMS
+from .forms import DEFAULT_FORMS as FIT_DEFAULT_FORMS
 from .model import Probe, Solid, default_solid, get_probe, probe_from_table, solid_from_table
 from .potentials import default_box_nm, default_cutoff_nm
 from .sampler import SamplingSettings

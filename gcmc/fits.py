@@ -51,18 +51,7 @@ from scipy import optimize, stats
 
 from . import forms as _forms
 from .errors import InputError
-from .forms import FORMS, INTERPOLANT_FORM, ZERO_FORM, Form
-
-#: default candidate list for :func:`fit_isotherm` (see gcmc.forms.FORMS for why
-#: dual_site_langmuir_sips is not in it)
-DEFAULT_FORMS: tuple[str, ...] = (
-    "langmuir",
-    "sips",
-    "toth",
-    "hill_de_boer",
-    "multi_step_2",
-    "multi_step_3",
-)
+from .forms import DEFAULT_FORMS, FORMS, INTERPOLANT_FORM, ZERO_FORM, Form
 
 RELATIVE_STDERR_FLOOR = 1e-3
 ABSOLUTE_STDERR_FLOOR = 1e-6  # times max |n|

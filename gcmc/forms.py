@@ -381,6 +381,18 @@ Notes on the design choices:
 """
 
 
+#: default candidate list for :func:`gcmc.fits.fit_isotherm` (see FORMS above for why
+#: dual_site_langmuir_sips is not in it)
+DEFAULT_FORMS: tuple[str, ...] = (
+    "langmuir",
+    "sips",
+    "toth",
+    "hill_de_boer",
+    "multi_step_2",
+    "multi_step_3",
+)
+
+
 def form(name: str) -> Form:
     """Look up a registered form or raise InputError naming it."""
     try:
