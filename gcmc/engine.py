@@ -20,9 +20,10 @@ so the pair loop may read a cell's slots up to the next multiple of 8 (stale or 
 masked out).
 
 Speed (benchmarks/README.md, "Engine speed"): the helpers are inlined at the numba IR level
-into one move loop compiled without the reference-counting runtime (``_nrt=False``: it only
-borrows the caller's arrays), so the pair sums of a move run without calls or atomic
-refcount updates (the slab-tail sum stays a call: it keeps its own fastmath); the neighbour
+into one move loop, ``run_moves``, compiled without the reference-counting runtime
+(``_nrt=False``: it only borrows the caller's arrays), so the pair sums of a move run
+without calls or atomic refcount updates (the slab-tail sum stays a call: it keeps its own
+fastmath); the neighbour
 lists run nearest cells first, so the overlap test of a trial position usually stops in the
 home cell.
 
@@ -267,25 +268,23 @@ def _wrap(v, length):
     return v
 
 
-@njit(cache=True, error_model="numpy", boundscheck=False)
-def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot,
-              nbr, nbr_n, zbin_n, tail_table, rng, energy, counters,
-              out_n, out_uff, out_usf, out_start, profile):
-    """Run n_moves trial moves. Every sample_every moves, record N, U_ff, U_sf at
-    out_*[out_start + k] and add the z-bin counts to ``profile``. Returns samples written."""
-    # trial positions, weights and energies of biased insertion, allocated here because the
-    # move loop runs without the runtime that allocates
-    scratch = np.empty((6, max(1, ip[I_KTRIALS])))
-    return _move_loop(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cell,
-                      pid_slot, nbr, nbr_n, zbin_n, tail_table, rng, energy, counters, out_n,
-                      out_uff, out_usf, out_start, profile, scratch)
-
-
 @njit(cache=True, fastmath=MOVE_FASTMATH, error_model="numpy", boundscheck=False, _nrt=False)
-def _move_loop(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot,
-               nbr, nbr_n, zbin_n, tail_table, rng, energy, counters, out_n, out_uff, out_usf,
-               out_start, profile, scratch):
-    """The body of run_moves (scratch: float64[6, >= k_trials])."""
+def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot,
+              nbr, nbr_n, zbin_n, tail_table, rng, energy, counters, out_n, out_uff, out_usf,
+              out_start, profile, scratch):
+    """Run n_moves trial moves. Every sample_every moves, record N, U_ff, U_sf at
+    out_*[out_start + k] and add the z-bin counts to ``profile``. Returns samples written.
+
+    ``scratch`` (float64[6, >= k_trials], the caller's) holds the trial positions, weights
+    and energies of biased insertion: the loop runs without the runtime that allocates.
+
+    This is the only compiled entry point of the move loop, called from Python and from no
+    other compiled function. A second compiled caller would link its own copy of the loop
+    into its own module, where LLVM may reassociate the fastmath sums differently; the copy
+    that ran would then depend on whether this process compiled the engine or loaded it from
+    numba's cache, and a build would not be bit-for-bit reproducible across processes
+    (tests/test_startup.py checks this).
+    """
     lx = fp[F_LX]
     ly = fp[F_LY]
     lz = fp[F_LZ]

@@ -109,6 +109,7 @@ class Box:
         self.counters = np.zeros(E.N_COUNTERS, dtype=np.int64)
         self.rng = rng_state if rng_state is not None else np.array([1, 2, 3, 4], dtype=np.uint64)
         self.capacity = cap
+        self._scratch = np.empty((6, max(1, int(ip[E.I_KTRIALS]))))
 
     # -- parameters ---------------------------------------------------------------------
     @property
@@ -150,10 +151,14 @@ class Box:
             sample_every = 0
         if profile is None:
             profile = np.zeros(self.n_bins)
+        k_trials = max(1, int(self.ip[E.I_KTRIALS]))
+        if self._scratch.shape[1] < k_trials:  # biased-insertion trials changed (ladder, auto)
+            self._scratch = np.empty((6, k_trials))
         return E.run_moves(int(n_moves), int(sample_every), self.fp, self.ip, self.cell_xyz,
                            self.cell_n, self.cell_pid, self.pid_cell, self.pid_slot, self.nbr,
                            self.nbr_n, self.zbin_n, self.tail_table, self.rng, self.energy,
-                           self.counters, out_n, out_uff, out_usf, int(out_start), profile)
+                           self.counters, out_n, out_uff, out_usf, int(out_start), profile,
+                           self._scratch)
 
     def recomputed_energy(self) -> tuple[float, float]:
         """(U_ff, U_sf) recomputed from scratch (K)."""
