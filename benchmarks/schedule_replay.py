@@ -23,12 +23,13 @@ width), so for larger grids the costs are synthesised from it: each synthetic wi
 measured cost interpolated in log(cost) against H between the measured widths, times a
 multiplicative scatter resampled from the measured tasks' residuals about that interpolation
 (leave-one-out); temperatures repeat the width profile with fresh scatter (the cost's
-temperature dependence is not modelled). The a-priori estimate is interpolated linearly in H,
-which is exact for gcmc.build's cost model (linear in H). Start-up (imports, the numba cache,
-the EOS) and the final assembly are not part of the replay: they are measured by
-bench_scaleout.py.
+temperature dependence is not modelled). The a-priori estimate (gcmc.cost) of a synthetic
+width is interpolated in log(estimate) against H between the measured widths, like the cost.
+Start-up (imports, the numba cache, the EOS) and the final assembly are not part of the
+replay: they are measured by bench_scaleout.py.
 
     python benchmarks/schedule_replay.py                  # build the replay kernel if needed
+    python benchmarks/schedule_replay.py --case argon     # the argon 87 K replay kernel
     python benchmarks/schedule_replay.py runs/x/k.v1.h5   # replay another kernel's costs
 """
 
@@ -135,22 +136,59 @@ def synthesise(
     hs = np.linspace(h[0], h[-1], n_w)
     base = np.interp(hs, h, ls)
     cost = np.concatenate([np.exp(base + rng.choice(resid, n_w)) for _ in range(n_t)])
-    estimate = np.tile(np.interp(hs, h, est), n_t)
+    estimate = np.tile(np.exp(np.interp(hs, h, np.log(np.maximum(est, 1e-300)))), n_t)
     return cost, estimate
 
 
-def ensure_replay_kernel() -> Path:
-    found = sorted((WORK / "out").glob("replay-methane.v*.h5"))
+#: A second, subcritical case: argon at 87.3 K over the micropore range, where films and
+#: pore filling decide which points run biased insertion.
+REPLAY_CONFIG_ARGON = """\
+# Task costs for benchmarks/schedule_replay.py: argon 87.3 K, H = 0.7 - 3.4 nm.
+seed = 12
+
+[kernel]
+name = "replay-argon"
+output = "out"
+
+[probe]
+library_name = "argon"
+
+[widths]
+ranges = [{ from_nm = 0.70, to_nm = 3.40, step_nm = 0.15 }]
+
+[temperatures]
+K = [87.3]
+
+[pressures]
+from_p_p0 = 1.0e-6
+to_p_p0 = 0.95
+count = 8
+
+[sampling]
+equilibration_moves = 20000
+production_moves = 80000
+sample_every = 20
+"""
+
+CASES = {
+    "methane": ("replay-methane", REPLAY_CONFIG, WORK),
+    "argon": ("replay-argon", REPLAY_CONFIG_ARGON, REPO / "runs" / "replay-argon"),
+}
+
+
+def ensure_replay_kernel(case: str = "methane") -> Path:
+    name, text, work = CASES[case]
+    found = sorted((work / "out").glob(f"{name}.v*.h5"))
     if found:
         return found[-1]
-    WORK.mkdir(parents=True, exist_ok=True)
-    cfg = WORK / "replay.toml"
-    cfg.write_text(REPLAY_CONFIG)
+    work.mkdir(parents=True, exist_ok=True)
+    cfg = work / "replay.toml"
+    cfg.write_text(text)
     # one worker: a task's measured cost is then its own, not shared with a second worker
     print(f"building the replay kernel once, 1 worker ({cfg}) ...", flush=True)
     cmd = [sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress", "--workers", "1"]
     subprocess.run(cmd, check=True, cwd=REPO)
-    return sorted((WORK / "out").glob("replay-methane.v*.h5"))[-1]
+    return sorted((work / "out").glob(f"{name}.v*.h5"))[-1]
 
 
 def table(title: str, cost: np.ndarray, estimate: np.ndarray) -> str:
@@ -183,8 +221,14 @@ def main(argv: list[str] | None = None) -> int:
         help="synthetic grid, temperatures x widths (default 16x256 = 4096 tasks)",
     )
     ap.add_argument("--seed", type=int, default=1, help="seed of the resampled scatter")
+    ap.add_argument(
+        "--case",
+        choices=sorted(CASES),
+        default="methane",
+        help="built-in replay kernel when no kernel file is given",
+    )
     args = ap.parse_args(argv)
-    kernel = Path(args.kernel) if args.kernel else ensure_replay_kernel()
+    kernel = Path(args.kernel) if args.kernel else ensure_replay_kernel(args.case)
     h, sec, est = measured_costs(kernel)
     n_t, n_w = (int(x) for x in args.grid.lower().split("x"))
     rank_corr = float(np.corrcoef(np.argsort(np.argsort(sec)), np.argsort(np.argsort(est)))[0, 1])

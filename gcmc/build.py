@@ -66,6 +66,7 @@ class BuildPlan:
 
 def make_plan(cfg: RunConfig) -> BuildPlan:
     """Thermodynamic states per temperature and the task list, before any simulation."""
+    from .cost import estimate_task_cost
     from .eos import make_eos
 
     eos = make_eos(cfg.eos, cfg.probe)
@@ -91,12 +92,17 @@ def make_plan(cfg: RunConfig) -> BuildPlan:
             bulk_density_per_nm3=np.array([s.density_per_nm3 for s in states]),
             residual_enthalpy_K=np.array([s.residual_enthalpy_K for s in states])))
     tasks = []
-    for ti in range(len(temps)):
-        for wi, h in enumerate(cfg.widths_H_nm):
-            # Cost model: moves per point are fixed, the cost of a move grows with the number
-            # of neighbours (the density) and the slab tail with H; wide pores filled at high
-            # pressure cost most. Learned costs replace this on resume (task_seconds).
-            cost = len(cfg.pressures.values) * (1.0 + h / cfg.probe.sigma_nm)
+    s = cfg.sampling
+    for ti, tp in enumerate(temps):
+        for wi in range(len(cfg.widths_H_nm)):
+            # A-priori cost (gcmc.cost): where the pore fills and biased insertion switches
+            # on, and the neighbours per move. Learned costs replace it on resume.
+            cost = estimate_task_cost(
+                pore_model(cfg, wi), tp.temperature_K, tp.fugacities_Pa,
+                moves_per_point=s.equilibration_moves + s.production_moves,
+                insertion_trials=s.insertion_trials, biased_trials=s.biased_trials,
+                displacement_fraction=s.displacement_fraction,
+                branches=2 if cfg.pressures.descending else 1, replicas=s.replicas)
             tasks.append(Task(ti, wi, cost))
     tasks.sort(key=lambda k: (-k.estimated_cost, k.t_index, k.w_index))
     task_dir = cfg.output / f"{cfg.name}.tasks" / cfg.config_hash[:16]
