@@ -89,29 +89,40 @@ PREP_SWEEPS_X8 = {"bulk": 20.0, "slit": 1000.0}
 @dataclass(frozen=True)
 class StateSpec:
     name: str
-    geometry: str          # "bulk" or "slit"
-    t_red: float           # T* = kT/eps
+    geometry: str  # "bulk" or "slit"
+    t_red: float  # T* = kT/eps
     cutoff_sigma: float
-    edge_sigma: float      # bulk cube edge / slit lateral edge
-    rho_red: float = 0.0   # bulk target density rho sigma^3
+    edge_sigma: float  # bulk cube edge / slit lateral edge
+    rho_red: float = 0.0  # bulk target density rho sigma^3
     width_sigma: float = 0.0  # slit H / sigma
 
     def scaled(self) -> StateSpec:
         """The same state with 8 x the volume (so 8 x the molecules)."""
         f = 2.0 if self.geometry == "bulk" else math.sqrt(8.0)
-        return StateSpec(self.name + "-x8", self.geometry, self.t_red, self.cutoff_sigma,
-                         self.edge_sigma * f, self.rho_red, self.width_sigma)
+        return StateSpec(
+            self.name + "-x8",
+            self.geometry,
+            self.t_red,
+            self.cutoff_sigma,
+            self.edge_sigma * f,
+            self.rho_red,
+            self.width_sigma,
+        )
 
 
 def default_states() -> list[StateSpec]:
     states = []
     for rho, t in ((0.1, 2.0), (0.5, 2.0), (0.8, 1.0)):
         for rc in (2.5, 5.0):
-            states.append(StateSpec(f"bulk-{rho}-rc{rc}", "bulk", t, rc, max(10.0, 3.0 * rc),
-                                    rho_red=rho))
+            states.append(
+                StateSpec(f"bulk-{rho}-rc{rc}", "bulk", t, rc, max(10.0, 3.0 * rc), rho_red=rho)
+            )
     for h in (3.0, 10.0):
-        states.append(StateSpec(f"slit-H{h:g}", "slit", T_SLIT, SLIT_CUTOFF_SIGMA,
-                                SLIT_EDGE_SIGMA, width_sigma=h))
+        states.append(
+            StateSpec(
+                f"slit-H{h:g}", "slit", T_SLIT, SLIT_CUTOFF_SIGMA, SLIT_EDGE_SIGMA, width_sigma=h
+            )
+        )
     return states
 
 
@@ -151,14 +162,34 @@ class Reference:
         self._f = f
 
     def run(self, box, n_moves: int) -> None:
-        arrays = (box.fp, box.ip, box.cell_xyz, box.cell_n, box.cell_pid, box.pid_cell,
-                  box.pid_slot, box.nbr, box.nbr_n, box.zbin_n, box.tail_table, box.rng,
-                  box.energy, box.counters)
+        arrays = (
+            box.fp,
+            box.ip,
+            box.cell_xyz,
+            box.cell_n,
+            box.cell_pid,
+            box.pid_cell,
+            box.pid_slot,
+            box.nbr,
+            box.nbr_n,
+            box.zbin_n,
+            box.tail_table,
+            box.rng,
+            box.energy,
+            box.counters,
+        )
         for a in arrays:
             if not a.flags.c_contiguous:
                 raise RuntimeError("Box arrays must be C-contiguous")
-        if self._f(int(n_moves), *[a.ctypes.data for a in arrays], box.cell_xyz.shape[2],
-                   box.nbr.shape[1]) != 0:
+        if (
+            self._f(
+                int(n_moves),
+                *[a.ctypes.data for a in arrays],
+                box.cell_xyz.shape[2],
+                box.nbr.shape[1],
+            )
+            != 0
+        ):
             raise RuntimeError("C reference refused the state (k_trials too large)")
 
 
@@ -206,8 +237,7 @@ def _lattice(n: int, lo: np.ndarray, hi: np.ndarray, rng: np.random.Generator) -
     return pts + rng.uniform(-0.05, 0.05, pts.shape) * (span / k)
 
 
-def make_state(spec: StateSpec, prep_sweeps: float, cells_per_cutoff: int = 1,
-               tile_from=None):
+def make_state(spec: StateSpec, prep_sweeps: float, cells_per_cutoff: int = 1, tile_from=None):
     """A Box at the state, equilibrated by GCMC (see the module docstring). With
     ``tile_from`` (the prepared small Box), start from 2 x 2 x 2 copies of it (bulk) or from
     a lattice of 8 x its molecules (slit)."""
@@ -222,15 +252,26 @@ def make_state(spec: StateSpec, prep_sweeps: float, cells_per_cutoff: int = 1,
     edge = spec.edge_sigma * sig
     rng = np.random.default_rng(seed)
     if spec.geometry == "bulk":
-        model = PoreModel(probe=probe, solid=Solid(), geometry=BULK,
-                          cutoff_nm=spec.cutoff_sigma * sig, box_nm=edge)
+        model = PoreModel(
+            probe=probe,
+            solid=Solid(),
+            geometry=BULK,
+            cutoff_nm=spec.cutoff_sigma * sig,
+            box_nm=edge,
+        )
         z_red = lj_activity(spec.t_red, spec.rho_red)
         n0 = int(round(spec.rho_red * spec.edge_sigma**3))
         lo, hi = np.zeros(3), np.full(3, edge)
     else:
         h = spec.width_sigma * sig
-        model = PoreModel(probe=probe, solid=Solid(), geometry=SLIT,
-                          cutoff_nm=spec.cutoff_sigma * sig, box_nm=edge, width_nm=h)
+        model = PoreModel(
+            probe=probe,
+            solid=Solid(),
+            geometry=SLIT,
+            cutoff_nm=spec.cutoff_sigma * sig,
+            box_nm=edge,
+            width_nm=h,
+        )
         z_red = SLIT_ACTIVITY_FRACTION * lj_saturation_activity(spec.t_red)
         # liquid (rho* ~ 0.75) between the planes where the wall potential is attractive
         margin = 0.85 * model.solid_fluid.sigma_nm
@@ -239,9 +280,14 @@ def make_state(spec: StateSpec, prep_sweeps: float, cells_per_cutoff: int = 1,
         n0 = int(0.75 * np.prod(hi - lo) / sig**3)
         if tile_from is not None:  # 8 x the molecules of the prepared small pore
             n0 = 8 * tile_from.n_molecules
-    box = Box(model, spec.t_red * EPS_K, z_red / sig**3,
-              EngineOptions(cells_per_cutoff=cells_per_cutoff), rng_state=seed_state(seed),
-              max_displacement_nm=0.15 * sig)
+    box = Box(
+        model,
+        spec.t_red * EPS_K,
+        z_red / sig**3,
+        EngineOptions(cells_per_cutoff=cells_per_cutoff),
+        rng_state=seed_state(seed),
+        max_displacement_nm=0.15 * sig,
+    )
     if tile_from is not None and spec.geometry == "bulk":
         small = tile_from.positions()
         half = tile_from.model.box_nm
@@ -257,8 +303,11 @@ def make_state(spec: StateSpec, prep_sweeps: float, cells_per_cutoff: int = 1,
         box.run(max(1, n_moves // 10))
         a = box.acceptance()["displacement"]
         if math.isfinite(a):
-            box.max_displacement_nm = float(np.clip(
-                box.max_displacement_nm * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, 0.5 * edge))
+            box.max_displacement_nm = float(
+                np.clip(
+                    box.max_displacement_nm * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, 0.5 * edge
+                )
+            )
     box.reset_counters()
     box.energy[:] = box.recomputed_energy()
     return box
@@ -284,7 +333,7 @@ def time_engines(box, engines: dict, n_moves: int, repeats: int) -> dict:
     times: dict[str, list[float]] = {k: [] for k in names}
     same = True
     for rep in range(repeats):
-        order = names[rep % len(names):] + names[:rep % len(names)]
+        order = names[rep % len(names) :] + names[: rep % len(names)]
         if rep % 2:
             order = order[::-1]
         ends = {}
@@ -300,8 +349,12 @@ def time_engines(box, engines: dict, n_moves: int, repeats: int) -> dict:
     out = {"same_trajectory": same}
     for k in names:
         r = np.array(times[k]) / base  # > 1: engine k slower than engines[0]
-        out[k] = {"moves_per_s": n_moves / min(times[k]), "time_ratio_median": float(
-            np.median(r)), "time_ratio_min": float(r.min()), "time_ratio_max": float(r.max())}
+        out[k] = {
+            "moves_per_s": n_moves / min(times[k]),
+            "time_ratio_median": float(np.median(r)),
+            "time_ratio_min": float(r.min()),
+            "time_ratio_max": float(r.max()),
+        }
     return out
 
 
@@ -358,8 +411,9 @@ def machine_summary() -> dict:
         pass
     cc = os.environ.get("CC") or shutil.which("cc") or "cc"
     try:
-        info["cc"] = subprocess.run([cc, "--version"], capture_output=True, text=True,
-                                    check=True).stdout.splitlines()[0]
+        info["cc"] = subprocess.run(
+            [cc, "--version"], capture_output=True, text=True, check=True
+        ).stdout.splitlines()[0]
     except Exception:  # pragma: no cover
         info["cc"] = cc
     return info
@@ -377,23 +431,34 @@ def _parse_variants(text: str) -> list[int]:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--quick", action="store_true",
-                    help="fewer repeats, one C variant, no 8x systems")
+    ap.add_argument(
+        "--quick", action="store_true", help="fewer repeats, one C variant, no 8x systems"
+    )
     ap.add_argument("--states", default="", help="comma-separated state names (default: all)")
     ap.add_argument("--repeats", type=int, default=0, help="timed repeats per engine")
     ap.add_argument("--seconds", type=float, default=0.0, help="numba seconds per segment")
-    ap.add_argument("--c-variants", default="",
-                    help="pair-loop forms of the C reference to time (default: all; the "
-                    "fastest per state is the reference)")
+    ap.add_argument(
+        "--c-variants",
+        default="",
+        help="pair-loop forms of the C reference to time (default: all; the "
+        "fastest per state is the reference)",
+    )
     ap.add_argument("--no-fast-math", action="store_true", help="compile C without -ffast-math")
     ap.add_argument("--no-scaling", action="store_true", help="skip the 8x systems")
-    ap.add_argument("--cells-per-cutoff", type=int, default=1,
-                    help="engine option: cell edge >= r_c / this")
-    ap.add_argument("--bookkeeping-moves", type=int, default=1_000_000,
-                    help="numba moves per state before comparing box.energy with a full "
-                    "recomputation")
-    ap.add_argument("--gcmc", default="", help="import gcmc from this directory instead "
-                    "(to time a variant of the engine)")
+    ap.add_argument(
+        "--cells-per-cutoff", type=int, default=1, help="engine option: cell edge >= r_c / this"
+    )
+    ap.add_argument(
+        "--bookkeeping-moves",
+        type=int,
+        default=1_000_000,
+        help="numba moves per state before comparing box.energy with a full recomputation",
+    )
+    ap.add_argument(
+        "--gcmc",
+        default="",
+        help="import gcmc from this directory instead (to time a variant of the engine)",
+    )
     ap.add_argument("--json", default="", help="write the results to this JSON file")
     args = ap.parse_args(argv)
     sys.path.insert(0, str(Path(args.gcmc).resolve()) if args.gcmc else str(HERE.parent))
@@ -403,8 +468,10 @@ def main(argv: list[str] | None = None) -> int:
     repeats = args.repeats or (4 if args.quick else 5)
     seconds = args.seconds or (0.1 if args.quick else 0.12)
     scaling = not (args.quick or args.no_scaling)
-    variants = _parse_variants(args.c_variants or (
-        str(DEFAULT_C_VARIANT) if args.quick else ",".join(map(str, C_VARIANTS))))
+    variants = _parse_variants(
+        args.c_variants
+        or (str(DEFAULT_C_VARIANT) if args.quick else ",".join(map(str, C_VARIANTS)))
+    )
     states = default_states()
     if args.states:
         want = args.states.split(",")
@@ -418,12 +485,16 @@ def main(argv: list[str] | None = None) -> int:
     engines = {"numba": lambda b, n: b.run(n)}
     engines.update({k: r.run for k, r in refs.items()})
     warm = warm_up()
-    print(f"# numba warm-up {warm:.1f} s; C reference variants {', '.join(refs)} "
-          f"({' '.join(CFLAGS)}{' without -ffast-math' if args.no_fast_math else ''})",
-          flush=True)
+    print(
+        f"# numba warm-up {warm:.1f} s; C reference variants {', '.join(refs)} "
+        f"({' '.join(CFLAGS)}{' without -ffast-math' if args.no_fast_math else ''})",
+        flush=True,
+    )
     rows = []
-    header = (f"{'state':<16}{'N':>6}{'rho*':>7}{'numba/s':>10}{'C/s':>10}{'best':>5}"
-              f"{'numba/C':>8}{'range':>11}{'/c7':>6}{'same':>5}{'dE/E':>8}")
+    header = (
+        f"{'state':<16}{'N':>6}{'rho*':>7}{'numba/s':>10}{'C/s':>10}{'best':>5}"
+        f"{'numba/C':>8}{'range':>11}{'/c7':>6}{'same':>5}{'dE/E':>8}"
+    )
     if len(refs) > 1:
         header += "  C variants (moves/s)"
     if scaling:
@@ -439,55 +510,84 @@ def main(argv: list[str] | None = None) -> int:
         probe.run(n_moves)  # acceptance ratios over one timed segment
         best = max(refs, key=lambda k: t[k]["moves_per_s"])
         ratio = t[best]["time_ratio_median"]  # t_C / t_numba = numba speed / C speed
-        err_nb = bookkeeping(box, engines["numba"], max(20 * n_moves,
-                                                             args.bookkeeping_moves))
+        err_nb = bookkeeping(box, engines["numba"], max(20 * n_moves, args.bookkeeping_moves))
         err_c = bookkeeping(box, refs[best].run, 20 * n_moves)
-        row = {"state": spec.name, "geometry": spec.geometry, "T_red": spec.t_red,
-               "cutoff_sigma": spec.cutoff_sigma, "edge_sigma": spec.edge_sigma,
-               "width_sigma": spec.width_sigma, "N": box.n_molecules,
-               "rho_red": reduced_density(box), "moves": n_moves,
-               "cells": list(box.n_cells_xyz), "acceptance": probe.acceptance(),
-               "bookkeeping_numba": err_nb, "bookkeeping_c": err_c,
-               "numba_moves_per_s": t["numba"]["moves_per_s"], "c_best": best,
-               "c_moves_per_s": t[best]["moves_per_s"], "numba_over_c": ratio,
-               "numba_over_c_min": t[best]["time_ratio_min"],
-               "numba_over_c_max": t[best]["time_ratio_max"],
-               "same_trajectory": t["same_trajectory"],
-               "c_variants": {k: t[k]["moves_per_s"] for k in refs},
-               "numba_over_c_same_form": t[SAME_FORM]["time_ratio_median"]
-               if SAME_FORM in refs else float("nan")}
-        line = (f"{spec.name:<16}{box.n_molecules:>6}{row['rho_red']:>7.3f}"
-                f"{row['numba_moves_per_s']:>10.3g}{row['c_moves_per_s']:>10.3g}{best:>5}"
-                f"{ratio:>8.2f}{row['numba_over_c_min']:>6.2f}-{row['numba_over_c_max']:<4.2f}"
-                f"{row['numba_over_c_same_form']:>6.2f}"
-                f"{'yes' if row['same_trajectory'] else 'no':>5}{max(err_nb, err_c):>8.0e}")
+        row = {
+            "state": spec.name,
+            "geometry": spec.geometry,
+            "T_red": spec.t_red,
+            "cutoff_sigma": spec.cutoff_sigma,
+            "edge_sigma": spec.edge_sigma,
+            "width_sigma": spec.width_sigma,
+            "N": box.n_molecules,
+            "rho_red": reduced_density(box),
+            "moves": n_moves,
+            "cells": list(box.n_cells_xyz),
+            "acceptance": probe.acceptance(),
+            "bookkeeping_numba": err_nb,
+            "bookkeeping_c": err_c,
+            "numba_moves_per_s": t["numba"]["moves_per_s"],
+            "c_best": best,
+            "c_moves_per_s": t[best]["moves_per_s"],
+            "numba_over_c": ratio,
+            "numba_over_c_min": t[best]["time_ratio_min"],
+            "numba_over_c_max": t[best]["time_ratio_max"],
+            "same_trajectory": t["same_trajectory"],
+            "c_variants": {k: t[k]["moves_per_s"] for k in refs},
+            "numba_over_c_same_form": t[SAME_FORM]["time_ratio_median"]
+            if SAME_FORM in refs
+            else float("nan"),
+        }
+        line = (
+            f"{spec.name:<16}{box.n_molecules:>6}{row['rho_red']:>7.3f}"
+            f"{row['numba_moves_per_s']:>10.3g}{row['c_moves_per_s']:>10.3g}{best:>5}"
+            f"{ratio:>8.2f}{row['numba_over_c_min']:>6.2f}-{row['numba_over_c_max']:<4.2f}"
+            f"{row['numba_over_c_same_form']:>6.2f}"
+            f"{'yes' if row['same_trajectory'] else 'no':>5}{max(err_nb, err_c):>8.0e}"
+        )
         if len(refs) > 1:
             line += "  " + " ".join(f"{k}:{v:.3g}" for k, v in row["c_variants"].items())
         if scaling:
-            big = make_state(spec.scaled(), PREP_SWEEPS_X8[spec.geometry],
-                             args.cells_per_cutoff, box)
+            big = make_state(
+                spec.scaled(), PREP_SWEEPS_X8[spec.geometry], args.cells_per_cutoff, box
+            )
             big.run(1000)
             tt = time_engines(big, {"numba": engines["numba"]}, n_moves, repeats)
             nb8 = tt["numba"]["moves_per_s"]
             nb1 = time_engines(box, {"numba": engines["numba"]}, n_moves, repeats)
             nb1 = nb1["numba"]["moves_per_s"]
-            row.update({"N_x8": big.n_molecules, "rho_red_x8": reduced_density(big),
-                        "numba_x8_moves_per_s": nb8, "numba_x1_moves_per_s_again": nb1,
-                        "x8_over_x1": nb8 / nb1})
+            row.update(
+                {
+                    "N_x8": big.n_molecules,
+                    "rho_red_x8": reduced_density(big),
+                    "numba_x8_moves_per_s": nb8,
+                    "numba_x1_moves_per_s_again": nb1,
+                    "x8_over_x1": nb8 / nb1,
+                }
+            )
             line += f"{big.n_molecules:>8}{nb8:>9.3g}{nb8 / nb1:>6.2f}"
         print(line, flush=True)
         rows.append(row)
     total = time.perf_counter() - t_start
     ratios = [r["numba_over_c"] for r in rows]
-    print(f"# numba/C (median of the repeats, against the fastest C variant per state): "
-          f"{min(ratios):.2f} .. {max(ratios):.2f}; wall time {total:.0f} s", flush=True)
+    print(
+        f"# numba/C (median of the repeats, against the fastest C variant per state): "
+        f"{min(ratios):.2f} .. {max(ratios):.2f}; wall time {total:.0f} s",
+        flush=True,
+    )
     if scaling:
         sc = [r["x8_over_x1"] for r in rows]
         print(f"# flat cost: numba moves/s x8 / x1 = {min(sc):.2f} .. {max(sc):.2f}", flush=True)
     if args.json:
-        out = {"machine": machine_summary(), "cflags": CFLAGS,
-               "fast_math": not args.no_fast_math, "c_variants": variants,
-               "repeats": repeats, "rows": rows, "wall_seconds": total}
+        out = {
+            "machine": machine_summary(),
+            "cflags": CFLAGS,
+            "fast_math": not args.no_fast_math,
+            "c_variants": variants,
+            "repeats": repeats,
+            "rows": rows,
+            "wall_seconds": total,
+        }
         Path(args.json).write_text(json.dumps(out, indent=1))
     return 0
 

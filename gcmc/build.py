@@ -54,7 +54,7 @@ class Task:
 class BuildPlan:
     config: RunConfig
     temperatures: list[TemperaturePlan]
-    tasks: list[Task]           # most expensive first
+    tasks: list[Task]  # most expensive first
     task_dir: Path
     eos_parameters: dict
 
@@ -85,12 +85,17 @@ def make_plan(cfg: RunConfig) -> BuildPlan:
             pressures = vals
             rel = pressures / p0 if math.isfinite(p0) else np.full_like(vals, np.nan)
         states = [eos.state(t, float(p)) for p in pressures]
-        temps.append(TemperaturePlan(
-            temperature_K=t, saturation_pressure_Pa=p0, pressures_Pa=pressures,
-            relative_pressures=rel,
-            fugacities_Pa=np.array([s.fugacity_Pa for s in states]),
-            bulk_density_per_nm3=np.array([s.density_per_nm3 for s in states]),
-            residual_enthalpy_K=np.array([s.residual_enthalpy_K for s in states])))
+        temps.append(
+            TemperaturePlan(
+                temperature_K=t,
+                saturation_pressure_Pa=p0,
+                pressures_Pa=pressures,
+                relative_pressures=rel,
+                fugacities_Pa=np.array([s.fugacity_Pa for s in states]),
+                bulk_density_per_nm3=np.array([s.density_per_nm3 for s in states]),
+                residual_enthalpy_K=np.array([s.residual_enthalpy_K for s in states]),
+            )
+        )
     tasks = []
     s = cfg.sampling
     for ti, tp in enumerate(temps):
@@ -98,16 +103,26 @@ def make_plan(cfg: RunConfig) -> BuildPlan:
             # A-priori cost (gcmc.cost): where the pore fills and biased insertion switches
             # on, and the neighbours per move. Learned costs replace it on resume.
             cost = estimate_task_cost(
-                pore_model(cfg, wi), tp.temperature_K, tp.fugacities_Pa,
+                pore_model(cfg, wi),
+                tp.temperature_K,
+                tp.fugacities_Pa,
                 moves_per_point=s.equilibration_moves + s.production_moves,
-                insertion_trials=s.insertion_trials, biased_trials=s.biased_trials,
+                insertion_trials=s.insertion_trials,
+                biased_trials=s.biased_trials,
                 displacement_fraction=s.displacement_fraction,
-                branches=2 if cfg.pressures.descending else 1, replicas=s.replicas)
+                branches=2 if cfg.pressures.descending else 1,
+                replicas=s.replicas,
+            )
             tasks.append(Task(ti, wi, cost))
     tasks.sort(key=lambda k: (-k.estimated_cost, k.t_index, k.w_index))
     task_dir = cfg.output / f"{cfg.name}.tasks" / cfg.config_hash[:16]
-    return BuildPlan(config=cfg, temperatures=temps, tasks=tasks, task_dir=task_dir,
-                     eos_parameters=eos.parameters())
+    return BuildPlan(
+        config=cfg,
+        temperatures=temps,
+        tasks=tasks,
+        task_dir=task_dir,
+        eos_parameters=eos.parameters(),
+    )
 
 
 def task_seed(cfg: RunConfig, task: Task) -> np.random.SeedSequence:
@@ -115,8 +130,14 @@ def task_seed(cfg: RunConfig, task: Task) -> np.random.SeedSequence:
 
 
 def pore_model(cfg: RunConfig, w_index: int) -> PoreModel:
-    return PoreModel(probe=cfg.probe, solid=cfg.solid, geometry=SLIT, cutoff_nm=cfg.cutoff_nm,
-                     box_nm=cfg.box_nm, width_nm=cfg.widths_H_nm[w_index])
+    return PoreModel(
+        probe=cfg.probe,
+        solid=cfg.solid,
+        geometry=SLIT,
+        cutoff_nm=cfg.cutoff_nm,
+        box_nm=cfg.box_nm,
+        width_nm=cfg.widths_H_nm[w_index],
+    )
 
 
 def task_path(plan: BuildPlan, task: Task) -> Path:
@@ -128,6 +149,7 @@ def failure_path(plan: BuildPlan, task: Task) -> Path:
 
 
 # --- one task ---------------------------------------------------------------------------------
+
 
 def run_task(plan: BuildPlan, task: Task) -> Path:
     """Run the pressure ladder of one (temperature, width); write its file atomically."""
@@ -157,24 +179,41 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             arrays[f"{branch}/{name}"] = np.full(n_p, np.nan)
         flags[branch] = [""] * n_p
         order = range(n_p) if branch == "adsorption" else range(n_p - 1, -1, -1)
-        states = [ThermoState(
-            temperature_K=tp.temperature_K, fugacity_Pa=float(tp.fugacities_Pa[k]),
-            pressure_Pa=float(tp.pressures_Pa[k]),
-            bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
-            residual_enthalpy_K=float(tp.residual_enthalpy_K[k]), eos=cfg.eos)
-            for k in range(n_p)]
+        states = [
+            ThermoState(
+                temperature_K=tp.temperature_K,
+                fugacity_Pa=float(tp.fugacities_Pa[k]),
+                pressure_Pa=float(tp.pressures_Pa[k]),
+                bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
+                residual_enthalpy_K=float(tp.residual_enthalpy_K[k]),
+                eos=cfg.eos,
+            )
+            for k in range(n_p)
+        ]
         if cfg.sampling.exchange:  # replica exchange along the ladder (gcmc.ladder)
             from .ladder import simulate_ladder
 
-            ladder = simulate_ladder(model, states, cfg.sampling, point_seeds[b * n_p],
-                                     starts=[positions] * n_p, max_displacement_nm=dmax)
+            ladder = simulate_ladder(
+                model,
+                states,
+                cfg.sampling,
+                point_seeds[b * n_p],
+                starts=[positions] * n_p,
+                max_displacement_nm=dmax,
+            )
         for k in order:
             state = states[k]
             if cfg.sampling.exchange:
                 out = ladder.points[k]
             else:
-                out = simulate_point(model, state, cfg.sampling, point_seeds[b * n_p + k],
-                                     start=positions, max_displacement_nm=dmax)
+                out = simulate_point(
+                    model,
+                    state,
+                    cfg.sampling,
+                    point_seeds[b * n_p + k],
+                    start=positions,
+                    max_displacement_nm=dmax,
+                )
             positions, dmax = out.positions, out.max_displacement_nm or None
             r = out.result
             for name in POINT_FIELDS:
@@ -188,10 +227,16 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             flags[branch][k] = "; ".join(r.flags)
     seconds = time.perf_counter() - t_start
     meta = {
-        "task": task.key, "t_index": task.t_index, "w_index": task.w_index,
-        "temperature_K": tp.temperature_K, "width_H_nm": model.width_nm,
-        "flags": flags, "host": socket.gethostname(), "seconds": seconds,
-        "seed_entropy": int(cfg.seed), "spawn_key": [task.t_index, task.w_index],
+        "task": task.key,
+        "t_index": task.t_index,
+        "w_index": task.w_index,
+        "temperature_K": tp.temperature_K,
+        "width_H_nm": model.width_nm,
+        "flags": flags,
+        "host": socket.gethostname(),
+        "seconds": seconds,
+        "seed_entropy": int(cfg.seed),
+        "spawn_key": [task.t_index, task.w_index],
     }
     arrays["henry_per_nm3_per_pa"] = np.array(limit.henry_per_nm3_per_pa)
     arrays["accessible"] = np.array(limit.accessible)
@@ -234,9 +279,11 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
         return "done", time.perf_counter() - t0, ""
     except Exception as exc:  # noqa: BLE001 - a failed task must not take the others down
         tp = plan.temperatures[task.t_index]
-        msg = (f"task {task.key} (T = {tp.temperature_K:g} K, H = "
-               f"{plan.config.widths_H_nm[task.w_index]:g} nm) failed: "
-               f"{type(exc).__name__}: {exc}")
+        msg = (
+            f"task {task.key} (T = {tp.temperature_K:g} K, H = "
+            f"{plan.config.widths_H_nm[task.w_index]:g} nm) failed: "
+            f"{type(exc).__name__}: {exc}"
+        )
         record = {"task": task.key, "error": msg, "traceback": traceback.format_exc()}
         fail = failure_path(plan, task)
         fail.parent.mkdir(parents=True, exist_ok=True)
@@ -274,8 +321,9 @@ def pending_tasks(plan: BuildPlan) -> list[Task]:
 
 
 def learned_order(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
-    """Most expensive first, using measured costs of finished tasks at neighbouring widths
-    when there are any (a resumed build learns from what it already did)."""
+    """Most expensive first: the a-priori estimate rescaled by the measured cost of finished
+    tasks at neighbouring widths (or of all finished tasks), so that a resumed build learns
+    from what it already did."""
     measured: dict[tuple[int, int], float] = {}
     for t in plan.tasks:
         p = task_path(plan, t)
@@ -287,13 +335,17 @@ def learned_order(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
                 p.unlink(missing_ok=True)
     if not measured:
         return tasks
-    est_ratio = np.median([measured[k] / next(t.estimated_cost for t in plan.tasks
-                                               if (t.t_index, t.w_index) == k)
-                           for k in measured])
+    estimate = {(t.t_index, t.w_index): t.estimated_cost for t in plan.tasks}
+    ratios = [measured[k] / estimate[k] for k in measured if estimate[k] > 0]
+    est_ratio = float(np.median(ratios)) if ratios else 1.0  # blocked pores are estimated 0
 
     def cost(t: Task) -> float:
-        near = [v for (ti, wi), v in measured.items() if ti == t.t_index and
-                abs(wi - t.w_index) <= 1]
-        return float(np.mean(near)) if near else t.estimated_cost * est_ratio
+        # the a-priori estimate's shape, scaled by what neighbouring widths really cost
+        near = [
+            measured[k] / estimate[k]
+            for k in measured
+            if k[0] == t.t_index and abs(k[1] - t.w_index) <= 1 and estimate[k] > 0
+        ]
+        return estimate[(t.t_index, t.w_index)] * (float(np.median(near)) if near else est_ratio)
 
     return sorted(tasks, key=lambda t: (-cost(t), t.t_index, t.w_index))

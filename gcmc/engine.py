@@ -86,8 +86,7 @@ MOVE_FASTMATH = {"reassoc", "nsz", "arcp", "contract"}
 E_FF, E_SF = 0, 1
 
 
-@njit(cache=True, fastmath=MOVE_FASTMATH, error_model="numpy", boundscheck=False,
-      inline="always")
+@njit(cache=True, fastmath=MOVE_FASTMATH, error_model="numpy", boundscheck=False, inline="always")
 def pair_energy(x, y, z, c_home, skip_cell, skip_slot, fp, ip, cell_xyz, cell_n, nbr, nbr_n):
     """LJ energy (K) of a molecule at (x, y, z) in cell c_home with all molecules within r_c,
     skipping the one at (skip_cell, skip_slot) (itself, when it is already in the box).
@@ -198,8 +197,23 @@ def insertion_tail(b, n_now, fp, ip, zbin_n, tail_table):
 
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
-def trial_energy(x, y, z, skip_cell, skip_slot, n_others, skip_bin, fp, ip, cell_xyz, cell_n,
-                 nbr, nbr_n, zbin_n, tail_table):
+def trial_energy(
+    x,
+    y,
+    z,
+    skip_cell,
+    skip_slot,
+    n_others,
+    skip_bin,
+    fp,
+    ip,
+    cell_xyz,
+    cell_n,
+    nbr,
+    nbr_n,
+    zbin_n,
+    tail_table,
+):
     """Energy of adding a molecule at (x, y, z) to the box, the molecule at (skip_cell,
     skip_slot, skip_bin) excluded (skip_cell = -1: none). Returns (d_ff, d_sf, overlap)."""
     usf = wall_energy(z, fp, ip)
@@ -269,9 +283,30 @@ def _wrap(v, length):
 
 
 @njit(cache=True, fastmath=MOVE_FASTMATH, error_model="numpy", boundscheck=False, _nrt=False)
-def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot,
-              nbr, nbr_n, zbin_n, tail_table, rng, energy, counters, out_n, out_uff, out_usf,
-              out_start, profile, scratch):
+def run_moves(
+    n_moves,
+    sample_every,
+    fp,
+    ip,
+    cell_xyz,
+    cell_n,
+    cell_pid,
+    pid_cell,
+    pid_slot,
+    nbr,
+    nbr_n,
+    zbin_n,
+    tail_table,
+    rng,
+    energy,
+    counters,
+    out_n,
+    out_uff,
+    out_usf,
+    out_start,
+    profile,
+    scratch,
+):
     """Run n_moves trial moves. Every sample_every moves, record N, U_ff, U_sf at
     out_*[out_start + k] and add the z-bin counts to ``profile``. Returns samples written.
 
@@ -331,13 +366,13 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
                         ok = False
                 if ok:
                     c1 = cell_of(x1, y1, z1, fp, ip)
-                    uff1, ov = pair_energy(x1, y1, z1, c1, c, s, fp, ip, cell_xyz, cell_n,
-                                           nbr, nbr_n)
+                    uff1, ov = pair_energy(
+                        x1, y1, z1, c1, c, s, fp, ip, cell_xyz, cell_n, nbr, nbr_n
+                    )
                     if ov:
                         ok = False
                 if ok:
-                    uff0, _ = pair_energy(x0, y0, z0, c, c, s, fp, ip, cell_xyz, cell_n,
-                                          nbr, nbr_n)
+                    uff0, _ = pair_energy(x0, y0, z0, c, c, s, fp, ip, cell_xyz, cell_n, nbr, nbr_n)
                     usf0 = wall_energy(z0, fp, ip)
                     dtail = 0.0
                     b0 = zbin_of(z0, fp, ip)
@@ -346,9 +381,11 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
                         db = b1 - b0
                         if db < 0:
                             db = -db
-                        dtail = (slab_tail_sum(b1, zbin_n, tail_table, nbins)
-                                 - slab_tail_sum(b0, zbin_n, tail_table, nbins)
-                                 - (tail_table[db] - tail_table[0]))
+                        dtail = (
+                            slab_tail_sum(b1, zbin_n, tail_table, nbins)
+                            - slab_tail_sum(b0, zbin_n, tail_table, nbins)
+                            - (tail_table[db] - tail_table[0])
+                        )
                     dff = uff1 - uff0 + dtail
                     dsf = usf1 - usf0
                     du = dff + dsf
@@ -363,10 +400,22 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
                             zbin_n[b0] -= 1
                             zbin_n[b1] += 1
                         else:
-                            remove_molecule(i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell,
-                                            pid_slot, zbin_n)
-                            add_molecule(x1, y1, z1, ip, fp, cell_xyz, cell_n, cell_pid,
-                                         pid_cell, pid_slot, zbin_n)
+                            remove_molecule(
+                                i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n
+                            )
+                            add_molecule(
+                                x1,
+                                y1,
+                                z1,
+                                ip,
+                                fp,
+                                cell_xyz,
+                                cell_n,
+                                cell_pid,
+                                pid_cell,
+                                pid_slot,
+                                zbin_n,
+                            )
         elif uniform(rng) < 0.5:
             # ---- insertion with k trial positions
             counters[C_INS_TRY] += 1
@@ -378,8 +427,9 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
                 tx[t] = x
                 ty[t] = y
                 tz[t] = z
-                dff, dsf, ov = trial_energy(x, y, z, -1, -1, n, -1, fp, ip, cell_xyz, cell_n,
-                                            nbr, nbr_n, zbin_n, tail_table)
+                dff, dsf, ov = trial_energy(
+                    x, y, z, -1, -1, n, -1, fp, ip, cell_xyz, cell_n, nbr, nbr_n, zbin_n, tail_table
+                )
                 w = 0.0
                 if not ov:
                     bu = beta * (dff + dsf)
@@ -407,8 +457,19 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
                     counters[C_INS_ACC] += 1
                     energy[E_FF] += tff[pick]
                     energy[E_SF] += tsf[pick]
-                    add_molecule(tx[pick], ty[pick], tz[pick], ip, fp, cell_xyz, cell_n,
-                                 cell_pid, pid_cell, pid_slot, zbin_n)
+                    add_molecule(
+                        tx[pick],
+                        ty[pick],
+                        tz[pick],
+                        ip,
+                        fp,
+                        cell_xyz,
+                        cell_n,
+                        cell_pid,
+                        pid_cell,
+                        pid_slot,
+                        zbin_n,
+                    )
         else:
             # ---- deletion (with k - 1 trial positions when biased)
             counters[C_DEL_TRY] += 1
@@ -420,15 +481,45 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
                 y0 = cell_xyz[c, 1, s]
                 z0 = cell_xyz[c, 2, s]
                 b0 = zbin_of(z0, fp, ip)
-                dff0, dsf0, _ = trial_energy(x0, y0, z0, c, s, n - 1, b0, fp, ip, cell_xyz,
-                                             cell_n, nbr, nbr_n, zbin_n, tail_table)
+                dff0, dsf0, _ = trial_energy(
+                    x0,
+                    y0,
+                    z0,
+                    c,
+                    s,
+                    n - 1,
+                    b0,
+                    fp,
+                    ip,
+                    cell_xyz,
+                    cell_n,
+                    nbr,
+                    nbr_n,
+                    zbin_n,
+                    tail_table,
+                )
                 wsum = math.exp(-beta * (dff0 + dsf0))
                 for _t in range(k_trials - 1):
                     x = uniform(rng) * lx
                     y = uniform(rng) * ly
                     z = uniform(rng) * lz
-                    dff, dsf, ov = trial_energy(x, y, z, c, s, n - 1, b0, fp, ip, cell_xyz,
-                                                cell_n, nbr, nbr_n, zbin_n, tail_table)
+                    dff, dsf, ov = trial_energy(
+                        x,
+                        y,
+                        z,
+                        c,
+                        s,
+                        n - 1,
+                        b0,
+                        fp,
+                        ip,
+                        cell_xyz,
+                        cell_n,
+                        nbr,
+                        nbr_n,
+                        zbin_n,
+                        tail_table,
+                    )
                     if not ov:
                         bu = beta * (dff + dsf)
                         if bu < max_bu:
@@ -438,8 +529,9 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
                     counters[C_DEL_ACC] += 1
                     energy[E_FF] -= dff0
                     energy[E_SF] -= dsf0
-                    remove_molecule(i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot,
-                                    zbin_n)
+                    remove_molecule(
+                        i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n
+                    )
         if sample_every > 0 and (move + 1) % sample_every == 0:
             k = out_start + written
             out_n[k] = ip[I_N]
@@ -452,8 +544,9 @@ def run_moves(n_moves, sample_every, fp, ip, cell_xyz, cell_n, cell_pid, pid_cel
 
 
 @njit(cache=True, error_model="numpy", boundscheck=False)
-def total_energy(fp, ip, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, nbr, nbr_n, zbin_n,
-                 tail_table):
+def total_energy(
+    fp, ip, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, nbr, nbr_n, zbin_n, tail_table
+):
     """Full recomputation of (U_ff, U_sf) from the configuration (the bookkeeping check)."""
     n = ip[I_N]
     uff = 0.0

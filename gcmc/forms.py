@@ -711,7 +711,10 @@ def evaluate_fit(
                 if henry_constant is None:
                     raise InputError("henry_constant: required when below='henry'")
                 n_low = float(model(np.array(p_low)))
-                out = np.where(low, henry_extension(p, p_low, n_low, henry_constant), out)
+                # evaluated at p <= p_low only: above it exp(c p) may overflow (c > 0 when the
+                # lowest point already lies above the Henry line), and it is not used there
+                ext = henry_extension(np.minimum(p, p_low), p_low, n_low, henry_constant)
+                out = np.where(low, ext, out)
             else:
                 out = np.where(low, model_below(p), out)
     elif below == "henry":

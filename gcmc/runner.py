@@ -32,10 +32,16 @@ from .errors import InputError
 
 # --- MPI detection ---------------------------------------------------------------------------
 
+
 def mpi_world_size() -> int:
     """Ranks of the MPI job this process belongs to (1 when not under mpiexec)."""
-    for var in ("OMPI_COMM_WORLD_SIZE", "PMI_SIZE", "PMIX_SIZE", "MPI_LOCALNRANKS",
-                "SLURM_STEP_NUM_TASKS"):
+    for var in (
+        "OMPI_COMM_WORLD_SIZE",
+        "PMI_SIZE",
+        "PMIX_SIZE",
+        "MPI_LOCALNRANKS",
+        "SLURM_STEP_NUM_TASKS",
+    ):
         v = os.environ.get(var)
         if v and v.isdigit():
             return int(v)
@@ -43,6 +49,7 @@ def mpi_world_size() -> int:
 
 
 # --- lock --------------------------------------------------------------------------------------
+
 
 class BuildLock:
     """An exclusive lock on a kernel's output (a file created with O_EXCL). A lock left by a
@@ -65,9 +72,11 @@ class BuildLock:
                     self.path.unlink(missing_ok=True)
                     continue
                 owner = self.path.read_text().strip() if self.path.exists() else "?"
-                raise InputError(f"{self.path}: another build is writing this kernel "
-                                 f"(host, pid: {owner}); wait for it or remove the lock if it "
-                                 "is dead") from None
+                raise InputError(
+                    f"{self.path}: another build is writing this kernel "
+                    f"(host, pid: {owner}); wait for it or remove the lock if it "
+                    "is dead"
+                ) from None
             with os.fdopen(fd, "w") as fh:
                 fh.write(me)
             self.held = True
@@ -169,9 +178,12 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar) -> RunRep
         from .build import _worker_init, _worker_run
 
         ctx = mp.get_context("spawn")
-        with ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,
-                                 initializer=_worker_init,
-                                 initargs=(plan,)) as pool:
+        with ProcessPoolExecutor(
+            max_workers=min(workers, len(todo)),
+            mp_context=ctx,
+            initializer=_worker_init,
+            initargs=(plan,),
+        ) as pool:
             futures = [pool.submit(_worker_run, t.t_index, t.w_index) for t in todo]
             for fut in as_completed(futures):
                 key, status, sec, msg = fut.result()
@@ -214,8 +226,9 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: AN
             seen: set[str] = set()
             while not stop.is_set():
                 for t in order:
-                    if t.key not in seen and (task_path(plan, t).exists()
-                                              or failure_path(plan, t).exists()):
+                    if t.key not in seen and (
+                        task_path(plan, t).exists() or failure_path(plan, t).exists()
+                    ):
                         seen.add(t.key)
                         bar.update(per)
                 stop.wait(0.5)
@@ -260,5 +273,13 @@ def load_plan(config_path: str | Path) -> BuildPlan:
 def progress_bar(total: int, initial: int, enabled: bool):  # noqa: ANN201
     from tqdm import tqdm
 
-    return tqdm(total=total, initial=initial, unit="point", desc="build", file=sys.stderr,
-                disable=not enabled, smoothing=0.1, dynamic_ncols=True)
+    return tqdm(
+        total=total,
+        initial=initial,
+        unit="point",
+        desc="build",
+        file=sys.stderr,
+        disable=not enabled,
+        smoothing=0.1,
+        dynamic_ncols=True,
+    )

@@ -58,8 +58,10 @@ class SamplingSettings:
     biased_trials: int = 64
     bias_threshold: float = 3.0e-2
     displacement_fraction: float = 0.5
-    #: independent replicas per point; the second starts over-filled.
-    replicas: int = 1
+    #: independent replicas per point; the second starts over-filled, so that a point stuck
+    #: in one packing is caught by the replicas' disagreement (benchmarks/README.md,
+    #: "Sampling efficiency"): block errors alone read small while the mean is still wrong.
+    replicas: int = 2
     overfill_factor: float = 20.0
     #: stop production when the relative standard error of N reaches this (0: fixed length)
     target_rel_stderr: float = 0.0

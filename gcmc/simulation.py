@@ -29,18 +29,24 @@ ZBIN_SIGMA = 0.02
 class EngineOptions:
     """Numerical options of the engine that do not change the physics."""
 
-    cells_per_cutoff: int = 1      # cell edge >= r_c / cells_per_cutoff
-    insertion_trials: int = 1      # k trial positions per insertion / deletion (1 = plain)
+    cells_per_cutoff: int = 1  # cell edge >= r_c / cells_per_cutoff
+    insertion_trials: int = 1  # k trial positions per insertion / deletion (1 = plain)
     displacement_fraction: float = 0.5
-    slab_tail: bool = True         # slit pores: add the slab tail correction beyond r_c
+    slab_tail: bool = True  # slit pores: add the slab tail correction beyond r_c
 
 
 class Box:
     """The state of one GCMC simulation: arrays for the compiled engine."""
 
-    def __init__(self, model: PoreModel, temperature_k: float, activity_nm3: float,
-                 options: EngineOptions | None = None, rng_state: np.ndarray | None = None,
-                 max_displacement_nm: float | None = None):
+    def __init__(
+        self,
+        model: PoreModel,
+        temperature_k: float,
+        activity_nm3: float,
+        options: EngineOptions | None = None,
+        rng_state: np.ndarray | None = None,
+        max_displacement_nm: float | None = None,
+    ):
         self.model = model
         self.options = options or EngineOptions()
         self.temperature_k = float(temperature_k)
@@ -140,9 +146,16 @@ class Box:
         self.ip[E.I_KTRIALS] = max(1, int(k))
 
     # -- moves ------------------------------------------------------------------------------
-    def run(self, n_moves: int, sample_every: int = 0, out_n: np.ndarray | None = None,
-            out_uff: np.ndarray | None = None, out_usf: np.ndarray | None = None,
-            out_start: int = 0, profile: np.ndarray | None = None) -> int:
+    def run(
+        self,
+        n_moves: int,
+        sample_every: int = 0,
+        out_n: np.ndarray | None = None,
+        out_uff: np.ndarray | None = None,
+        out_usf: np.ndarray | None = None,
+        out_start: int = 0,
+        profile: np.ndarray | None = None,
+    ) -> int:
         """Run n_moves trial moves, sampling every sample_every moves (0: no sampling)."""
         if out_n is None:
             out_n = np.zeros(1, dtype=np.int64)
@@ -154,17 +167,46 @@ class Box:
         k_trials = max(1, int(self.ip[E.I_KTRIALS]))
         if self._scratch.shape[1] < k_trials:  # biased-insertion trials changed (ladder, auto)
             self._scratch = np.empty((6, k_trials))
-        return E.run_moves(int(n_moves), int(sample_every), self.fp, self.ip, self.cell_xyz,
-                           self.cell_n, self.cell_pid, self.pid_cell, self.pid_slot, self.nbr,
-                           self.nbr_n, self.zbin_n, self.tail_table, self.rng, self.energy,
-                           self.counters, out_n, out_uff, out_usf, int(out_start), profile,
-                           self._scratch)
+        return E.run_moves(
+            int(n_moves),
+            int(sample_every),
+            self.fp,
+            self.ip,
+            self.cell_xyz,
+            self.cell_n,
+            self.cell_pid,
+            self.pid_cell,
+            self.pid_slot,
+            self.nbr,
+            self.nbr_n,
+            self.zbin_n,
+            self.tail_table,
+            self.rng,
+            self.energy,
+            self.counters,
+            out_n,
+            out_uff,
+            out_usf,
+            int(out_start),
+            profile,
+            self._scratch,
+        )
 
     def recomputed_energy(self) -> tuple[float, float]:
         """(U_ff, U_sf) recomputed from scratch (K)."""
-        return E.total_energy(self.fp, self.ip, self.cell_xyz, self.cell_n, self.cell_pid,
-                              self.pid_cell, self.pid_slot, self.nbr, self.nbr_n, self.zbin_n,
-                              self.tail_table)
+        return E.total_energy(
+            self.fp,
+            self.ip,
+            self.cell_xyz,
+            self.cell_n,
+            self.cell_pid,
+            self.pid_cell,
+            self.pid_slot,
+            self.nbr,
+            self.nbr_n,
+            self.zbin_n,
+            self.tail_table,
+        )
 
     # -- configurations ---------------------------------------------------------------------
     def positions(self) -> np.ndarray:
@@ -188,13 +230,38 @@ class Box:
                     continue
             else:
                 z = z % lz
-            dff, dsf, ov = E.trial_energy(x, y, z, -1, -1, self.n_molecules, -1, self.fp,
-                                          self.ip, self.cell_xyz, self.cell_n, self.nbr,
-                                          self.nbr_n, self.zbin_n, self.tail_table)
+            dff, dsf, ov = E.trial_energy(
+                x,
+                y,
+                z,
+                -1,
+                -1,
+                self.n_molecules,
+                -1,
+                self.fp,
+                self.ip,
+                self.cell_xyz,
+                self.cell_n,
+                self.nbr,
+                self.nbr_n,
+                self.zbin_n,
+                self.tail_table,
+            )
             if ov:
                 continue
-            E.add_molecule(x, y, z, self.ip, self.fp, self.cell_xyz, self.cell_n,
-                           self.cell_pid, self.pid_cell, self.pid_slot, self.zbin_n)
+            E.add_molecule(
+                x,
+                y,
+                z,
+                self.ip,
+                self.fp,
+                self.cell_xyz,
+                self.cell_n,
+                self.cell_pid,
+                self.pid_cell,
+                self.pid_slot,
+                self.zbin_n,
+            )
         self.energy[:] = self.recomputed_energy()
         return self.n_molecules
 
@@ -214,17 +281,21 @@ class Box:
         self.counters[:] = 0
 
 
-def _neighbour_cells(nc: list[int], a: list[float], rc: float, m: int,
-                     periodic_z: bool) -> tuple[np.ndarray, np.ndarray]:
+def _neighbour_cells(
+    nc: list[int], a: list[float], rc: float, m: int, periodic_z: bool
+) -> tuple[np.ndarray, np.ndarray]:
     """The distinct cells whose boxes come within r_c of each cell: itself first, then the
     others nearest first."""
     ncx, ncy, ncz = nc
     # offsets nearest first (the home cell leads), so that the overlap test of a trial
     # position usually stops in the first cells it scans
-    offsets = [(dx, dy, dz) for dz in range(-m, m + 1) for dy in range(-m, m + 1)
-               for dx in range(-m, m + 1)]
-    stencil = sorted(offsets, key=lambda d: (d[0] ** 2 + d[1] ** 2 + d[2] ** 2, d[2], d[1],
-                                             d[0]))
+    offsets = [
+        (dx, dy, dz)
+        for dz in range(-m, m + 1)
+        for dy in range(-m, m + 1)
+        for dx in range(-m, m + 1)
+    ]
+    stencil = sorted(offsets, key=lambda d: (d[0] ** 2 + d[1] ** 2 + d[2] ** 2, d[2], d[1], d[0]))
     lists = []
     for iz in range(ncz):
         for iy in range(ncy):
@@ -238,8 +309,10 @@ def _neighbour_cells(nc: list[int], a: list[float], rc: float, m: int,
                         continue
                     jy = (iy + dy) % ncy
                     jx = (ix + dx) % ncx
-                    gap2 = sum((max(0, abs(d) - 1) * side) ** 2
-                               for d, side in zip((dx, dy, dz), a, strict=True))
+                    gap2 = sum(
+                        (max(0, abs(d) - 1) * side) ** 2
+                        for d, side in zip((dx, dy, dz), a, strict=True)
+                    )
                     if gap2 >= rc * rc:
                         continue
                     j = (jz * ncy + jy) * ncx + jx
@@ -264,8 +337,9 @@ def warm_up() -> float:
     t0 = time.perf_counter()
     probe = Probe(name="warm-up", epsilon_k=120.0, sigma_nm=0.34)
     for geom in (SLIT, BULK):
-        model = PoreModel(probe=probe, solid=Solid(), geometry=geom, cutoff_nm=0.85,
-                          box_nm=1.8, width_nm=1.2)
+        model = PoreModel(
+            probe=probe, solid=Solid(), geometry=geom, cutoff_nm=0.85, box_nm=1.8, width_nm=1.2
+        )
         box = Box(model, 120.0, 1.0)
         n = np.zeros(4, dtype=np.int64)
         box.run(200, 50, n, np.zeros(4), np.zeros(4), 0, np.zeros(box.n_bins))

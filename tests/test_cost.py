@@ -98,3 +98,52 @@ sample_every = 20
     costs = [t.estimated_cost for t in plan.tasks]
     assert costs == sorted(costs, reverse=True)
     assert plan.tasks[0].w_index == 0  # the narrowest pore first (it fills: biased insertion)
+
+
+def test_resumed_build_rescales_the_estimate_by_measured_neighbours(tmp_path, monkeypatch) -> None:  # noqa: ANN001, E501
+    """learned_order: a pending task whose finished neighbour cost 10x its estimate goes
+    before one with a larger estimate whose neighbour cost what was estimated."""
+    import tomllib
+    from pathlib import Path
+
+    import gcmc.build as B
+
+    text = """
+seed = 1
+[kernel]
+name = "order"
+output = "out"
+[probe]
+library_name = "methane"
+[widths]
+H_nm = [0.7, 0.8, 1.6, 1.8]
+[temperatures]
+K = [298.15]
+[pressures]
+from_Pa = 1.0e3
+to_Pa = 3.5e6
+count = 6
+"""
+    cfg = parse_config(tomllib.loads(text), text, Path("order.toml"))
+    plan = make_plan(cfg)
+    est = {t.w_index: t.estimated_cost for t in plan.tasks}
+    assert est[0] > est[1] > est[2] > 0  # narrow pores estimated dearer (see above)
+    measured = {1: 1.0 * est[1], 3: 10.0 * est[3]}  # finished: w1 as estimated, w3 10x
+    files = {w: tmp_path / f"w{w}.npz" for w in measured}
+    for f in files.values():
+        f.write_bytes(b"")
+    monkeypatch.setattr(B, "task_path", lambda _plan, t: files.get(t.w_index, tmp_path / "x"))
+    monkeypatch.setattr(
+        B,
+        "load_task",
+        lambda p: ({"seconds": next(measured[w] for w, f in files.items() if f == p)}, {}),
+    )
+    pending = [t for t in plan.tasks if t.w_index in (0, 2)]
+    # w2 is estimated ~14x cheaper than w0; its neighbour w3 took 10x its estimate, w0's
+    # neighbour w1 took its estimate: rescaled, w2 is still below w0 ...
+    assert est[0] > 10.0 * est[2]
+    assert [t.w_index for t in B.learned_order(plan, pending)] == [0, 2]
+    # ... and with w3 at 30x its estimate, above it
+    measured[3] = 30.0 * est[3]
+    assert est[0] < 30.0 * est[2]
+    assert [t.w_index for t in B.learned_order(plan, pending)] == [2, 0]

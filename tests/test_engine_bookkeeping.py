@@ -356,7 +356,11 @@ def test_simulate_point_is_deterministic_in_its_seed() -> None:
     )
     state = ThermoState(temperature_K=298.15, fugacity_Pa=1.0e6)
     settings = SamplingSettings(
-        equilibration_moves=20_000, production_moves=60_000, sample_every=100, insertion_trials=1
+        replicas=1,
+        equilibration_moves=20_000,
+        production_moves=60_000,
+        sample_every=100,
+        insertion_trials=1,
     )
     a = simulate_point(model, state, settings, 99).result
     b = simulate_point(model, state, settings, 99).result

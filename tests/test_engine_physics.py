@@ -160,6 +160,7 @@ def run_bulk(
         eos="lennard-jones",
     )
     settings = SamplingSettings(
+        replicas=1,
         equilibration_moves=equilibration,
         production_moves=production,
         sample_every=100,
@@ -374,6 +375,7 @@ def run_henry(
     state = ThermoState(temperature_K=temperature_k, fugacity_Pa=f)
     # Only insertions and deletions: in the Henry regime displacements do not decorrelate N.
     settings = SamplingSettings(
+        replicas=1,
         equilibration_moves=production // 10,
         production_moves=production,
         sample_every=100,
@@ -482,7 +484,11 @@ def test_ideal_gas_mean_and_poisson_fluctuations(k: int) -> None:
     assert abs(2 * ideal_second_virial_nm3() * z) < 2e-3
     state = ThermoState(temperature_K=IDEAL_T, fugacity_Pa=fugacity_pa(z, IDEAL_T))
     settings = SamplingSettings(
-        equilibration_moves=50_000, production_moves=1_500_000, sample_every=100, insertion_trials=k
+        replicas=1,
+        equilibration_moves=50_000,
+        production_moves=1_500_000,
+        sample_every=100,
+        insertion_trials=k,
     )
     out = simulate_point(model, state, settings, 31 + k)
     r = out.result
@@ -533,6 +539,7 @@ def test_biased_insertion_samples_the_same_ensemble(case: BiasCase) -> None:
     res = {}
     for k, moves in ((1, case.moves_plain), (10, case.moves_biased)):
         settings = SamplingSettings(
+            replicas=1,
             equilibration_moves=moves // 4,
             production_moves=moves,
             sample_every=100,
@@ -574,7 +581,9 @@ def test_too_narrow_pore_holds_no_molecules() -> None:
     limit = pore_limit(model, t)
     assert limit.blocked and not limit.accessible
     assert limit.minimum_potential_k / t > 20.0
-    settings = SamplingSettings(equilibration_moves=1000, production_moves=10_000, sample_every=100)
+    settings = SamplingSettings(
+        replicas=1, equilibration_moves=1000, production_moves=10_000, sample_every=100
+    )
     r = simulate_point(model, ThermoState(temperature_K=t, fugacity_Pa=f), settings, 1).result
     assert r.molecules_mean == 0.0 and r.density_per_nm3 == 0.0
     assert "inaccessible" in r.flags
@@ -622,6 +631,7 @@ def test_wide_pore_centre_density_is_bulk_density() -> None:
     # Independent replicas (seeds): the spread of their centre densities gives the error.
     # Insertions/deletions only change the slab content fastest, hence few displacements.
     settings = SamplingSettings(
+        replicas=1,
         equilibration_moves=200_000,
         production_moves=800_000,
         sample_every=100,
@@ -674,6 +684,7 @@ def loading(
         width_nm=h,
     )
     settings = SamplingSettings(
+        replicas=1,
         equilibration_moves=production // 4,
         production_moves=production,
         sample_every=100,

@@ -90,6 +90,7 @@ def test_wrong_swap_rule_is_detected(engine, monkeypatch):
     monkeypatch.setattr(L, "swap_acceptance", lambda zi, zj, ni, nj: 1.0)
     model = _ideal_model()
     settings = SamplingSettings(
+        replicas=1,
         equilibration_moves=2_000,
         production_moves=120_000,
         sample_every=20,
@@ -133,7 +134,11 @@ def test_swaps_accepted_between_close_pressures_in_a_pore(engine):
         probe=probe, solid=Solid(), geometry=SLIT, cutoff_nm=0.85, box_nm=1.8, width_nm=1.2
     )
     s = SamplingSettings(
-        equilibration_moves=5_000, production_moves=10_000, sample_every=50, insertion_trials=1
+        replicas=1,
+        equilibration_moves=5_000,
+        production_moves=10_000,
+        sample_every=50,
+        insertion_trials=1,
     )
     zs = (2.1e-3, 2.0e-3, 2.2e-3)
     out = L.simulate_ladder(model, _states(zs, 120.0), s, seed=3)

@@ -51,8 +51,14 @@ def test_compiled_and_cached_engine_give_the_same_trajectory(tmp_path) -> None: 
     env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "numba-cache"))
 
     def run() -> dict:
-        out = subprocess.run([sys.executable, "-c", TRAJECTORY], capture_output=True,
-                             text=True, timeout=600, check=True, env=env)
+        out = subprocess.run(
+            [sys.executable, "-c", TRAJECTORY],
+            capture_output=True,
+            text=True,
+            timeout=600,
+            check=True,
+            env=env,
+        )
         return json.loads(out.stdout.strip().splitlines()[-1])
 
     compiled, cached = run(), run()

@@ -19,14 +19,25 @@ command after an interruption and the build continues where it stopped. Under
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("build", help="build a kernel from a run config", description=HELP,
-                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = sub.add_parser(
+        "build",
+        help="build a kernel from a run config",
+        description=HELP,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     p.add_argument("config", help="run config (TOML), e.g. configs/quickstart.toml")
-    p.add_argument("--workers", type=int, default=0,
-                   help="local worker processes (default: every core; ignored under MPI)")
+    p.add_argument(
+        "--workers",
+        type=int,
+        default=0,
+        help="local worker processes (default: every core; ignored under MPI)",
+    )
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
-    p.add_argument("--check-only", action="store_true",
-                   help="validate the config and print the plan, simulate nothing")
+    p.add_argument(
+        "--check-only",
+        action="store_true",
+        help="validate the config and print the plan, simulate nothing",
+    )
     p.set_defaults(func=run)
 
 
@@ -77,11 +88,13 @@ def _run(args: argparse.Namespace, size: int, rank: int) -> int:
         say(f"kernel up to date: {existing} (same config; nothing to do)")
         return 0
     workers = args.workers or os.cpu_count() or 1
-    say(f"{cfg.name} v{version}: {cfg.probe.name}, {len(cfg.temperatures_K)} temperature(s) x "
+    say(
+        f"{cfg.name} v{version}: {cfg.probe.name}, {len(cfg.temperatures_K)} temperature(s) x "
         f"{len(cfg.widths_H_nm)} widths x {len(cfg.pressures.values)} pressures"
         f"{' (+ desorption)' if cfg.pressures.descending else ''} = {plan.n_points} points in "
         f"{len(plan.tasks)} tasks; EOS {cfg.eos}; "
-        + (f"{size} MPI ranks" if size > 1 else f"{workers} worker(s)"))
+        + (f"{size} MPI ranks" if size > 1 else f"{workers} worker(s)")
+    )
     if args.check_only:
         return 0
     lock = BuildLock(cfg.output / f"{cfg.name}.lock")
@@ -98,10 +111,13 @@ def _run(args: argparse.Namespace, size: int, rank: int) -> int:
         per = plan.n_points // max(len(plan.tasks), 1)
         done_before = len(plan.tasks) - len(pending_tasks(plan))
         if rank == 0:
-            log.write(f"build {cfg.name} v{version} config {cfg.config_hash[:16]} "
-                      f"({done_before}/{len(plan.tasks)} tasks already on disk)")
-        bar = progress_bar(plan.n_points, done_before * per,
-                           enabled=(rank == 0 and not args.no_progress))
+            log.write(
+                f"build {cfg.name} v{version} config {cfg.config_hash[:16]} "
+                f"({done_before}/{len(plan.tasks)} tasks already on disk)"
+            )
+        bar = progress_bar(
+            plan.n_points, done_before * per, enabled=(rank == 0 and not args.no_progress)
+        )
         with bar:
             if size > 1:
                 report = run_tasks_mpi(plan, log, bar if rank == 0 else None)
@@ -113,9 +129,12 @@ def _run(args: argparse.Namespace, size: int, rank: int) -> int:
         missing = [t.key for t in missing_tasks]
         if missing:
             log.write(f"build incomplete: {len(missing)} task(s) missing: {', '.join(missing)}")
-            print(f"gcmc build: {len(missing)} of {len(plan.tasks)} task(s) failed or missing "
-                  f"({', '.join(missing[:8])}{'...' if len(missing) > 8 else ''}); see "
-                  f"{log.path}. Rerun the same command to retry them.", file=sys.stderr)
+            print(
+                f"gcmc build: {len(missing)} of {len(plan.tasks)} task(s) failed or missing "
+                f"({', '.join(missing[:8])}{'...' if len(missing) > 8 else ''}); see "
+                f"{log.path}. Rerun the same command to retry them.",
+                file=sys.stderr,
+            )
             for t in missing_tasks[:8]:  # every rank's failures, with their coordinates
                 print(f"  {_failure_line(plan, t)}", file=sys.stderr)
             return 1
@@ -162,13 +181,22 @@ def _summary(plan, data, fits, report, path, seconds) -> None:  # noqa: ANN001
     ]
     if worst is not None:
         t, w, k = worst
-        rows.append(("worst relative error",
-                     f"{rel[worst]:.3g} at T = {data.temperatures_K[t]:g} K, H = "
-                     f"{data.widths_H_nm[w]:g} nm, p = {data.pressures_Pa[t, k]:.4g} Pa"))
+        rows.append(
+            (
+                "worst relative error",
+                f"{rel[worst]:.3g} at T = {data.temperatures_K[t]:g} K, H = "
+                f"{data.widths_H_nm[w]:g} nm, p = {data.pressures_Pa[t, k]:.4g} Pa",
+            )
+        )
     if worst_fit is not None:
-        rows.append(("worst fit", f"reduced chi2 = {worst_fit.reduced_chi2:.3g} ({worst_fit.form},"
-                     f" T = {data.temperatures_K[worst_fit.t_index]:g} K, H = "
-                     f"{data.widths_H_nm[worst_fit.w_index]:g} nm)"))
+        rows.append(
+            (
+                "worst fit",
+                f"reduced chi2 = {worst_fit.reduced_chi2:.3g} ({worst_fit.form},"
+                f" T = {data.temperatures_K[worst_fit.t_index]:g} K, H = "
+                f"{data.widths_H_nm[worst_fit.w_index]:g} nm)",
+            )
+        )
     rows.append(("forms used", ", ".join(f"{k} x{v}" for k, v in forms.most_common())))
     rows.append(("CPU time in tasks", f"{float(np.sum(data.task_seconds)):.1f} s"))
     rows.append(("wall time", f"{seconds:.1f} s"))

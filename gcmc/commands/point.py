@@ -72,9 +72,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     m.add_argument(
         "--replicas",
         type=int,
-        default=1,
-        help="independent replicas (2: the second starts over-filled; a point whose "
-        "replicas disagree is flagged)",
+        default=2,
+        help="independent replicas (default 2: the second starts over-filled; a point whose "
+        "replicas disagree is flagged as unconverged; 1 skips that check)",
     )
     m.add_argument(
         "--insertion-trials",
