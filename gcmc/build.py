@@ -295,24 +295,26 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
 
 # --- worker-process entry point ------------------------------------------------------------
 
-_WORKER_PLAN: BuildPlan | None = None
 
-
-def _worker_init(plan: BuildPlan) -> None:
-    # The parent's plan itself (pickled, a few kB): a worker does not re-read the config
-    # (which may have been edited since the build started) nor redo the EOS states (~2 s).
-    global _WORKER_PLAN
+def _worker_init() -> None:
+    """Pool worker start-up: imports and the compiled engine (from numba's cache), done while
+    the parent still prepares the plan (gcmc.runner.start_local_pool)."""
     os.environ.setdefault("NUMBA_NUM_THREADS", "1")
-    _WORKER_PLAN = plan
     from .simulation import warm_up
 
     warm_up()
 
 
-def _worker_run(t_index: int, w_index: int) -> tuple[str, str, float, str]:
-    assert _WORKER_PLAN is not None
-    task = next(t for t in _WORKER_PLAN.tasks if t.t_index == t_index and t.w_index == w_index)
-    status, seconds, msg = run_task_safely(_WORKER_PLAN, task)
+def _worker_ping() -> int:
+    """A no-op job: submitting one per worker makes the pool start them all at once."""
+    return os.getpid()
+
+
+def _worker_run(plan: BuildPlan, t_index: int, w_index: int) -> tuple[str, str, float, str]:
+    # The parent's plan itself (pickled, a few kB, with every task): a worker does not re-read
+    # the config (which may have been edited since the build started) nor redo the EOS states.
+    task = next(t for t in plan.tasks if t.t_index == t_index and t.w_index == w_index)
+    status, seconds, msg = run_task_safely(plan, task)
     return task.key, status, seconds, msg
 
 

@@ -148,8 +148,26 @@ def _points_per_task(plan: BuildPlan) -> int:
     return len(plan.config.pressures.values) * (2 if plan.config.pressures.descending else 1)
 
 
-def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar) -> RunReport:  # noqa: ANN001
-    """Run the pending tasks in this process (workers == 1) or a process pool."""
+def start_local_pool(workers: int):  # noqa: ANN201
+    """A process pool of ``workers`` spawned workers, started now: each imports the package
+    and loads the compiled engine while the parent goes on (the EOS states of the plan take
+    it about as long), instead of after the plan is ready."""
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    from .build import _worker_init, _worker_ping
+
+    pool = ProcessPoolExecutor(
+        max_workers=workers, mp_context=mp.get_context("spawn"), initializer=_worker_init
+    )
+    for _ in range(workers):
+        pool.submit(_worker_ping)
+    return pool
+
+
+def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None) -> RunReport:  # noqa: ANN001
+    """Run the pending tasks in this process (workers == 1) or a process pool (``pool``, or
+    one started here)."""
     report = RunReport()
     todo = learned_order(plan, pending_tasks(plan))
     report.skipped = len(plan.tasks) - len(todo)
@@ -164,7 +182,7 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar) -> RunRep
             if status != "done":
                 bar.write(msg)
 
-    if workers <= 1 or len(todo) <= 1:
+    if pool is None and (workers <= 1 or len(todo) <= 1):
         from .simulation import warm_up
 
         warm_up()
@@ -172,19 +190,14 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar) -> RunRep
             status, sec, msg = run_task_safely(plan, task)
             record(task.key, status, sec, msg)
     else:
-        import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor, as_completed
+        from concurrent.futures import as_completed
 
-        from .build import _worker_init, _worker_run
+        from .build import _worker_run
 
-        ctx = mp.get_context("spawn")
-        with ProcessPoolExecutor(
-            max_workers=min(workers, len(todo)),
-            mp_context=ctx,
-            initializer=_worker_init,
-            initargs=(plan,),
-        ) as pool:
-            futures = [pool.submit(_worker_run, t.t_index, t.w_index) for t in todo]
+        if pool is None:
+            pool = start_local_pool(min(workers, len(todo)))
+        with pool:
+            futures = [pool.submit(_worker_run, plan, t.t_index, t.w_index) for t in todo]
             for fut in as_completed(futures):
                 key, status, sec, msg = fut.result()
                 record(key, status, sec, msg)

@@ -68,26 +68,38 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace, size: int, rank: int) -> int:
-    from ..assemble import assemble_kernel
-    from ..library import next_version, write_kernel
-    from ..runner import (
-        BuildLock,
-        BuildLog,
-        load_plan,
-        progress_bar,
-        run_tasks_local,
-        run_tasks_mpi,
-    )
+    from ..build import make_plan
+    from ..config import load_config
+    from ..library import next_version
+    from ..runner import start_local_pool
 
     t_start = time.perf_counter()
-    plan = load_plan(args.config)  # validates everything before anything is written
-    cfg = plan.config
+    cfg = load_config(args.config)  # validates every field before anything is written
     say = print if rank == 0 else (lambda *a, **k: None)
     version, existing = next_version(cfg.output, cfg.name, cfg.config_hash)
     if existing is not None:
         say(f"kernel up to date: {existing} (same config; nothing to do)")
         return 0
     workers = args.workers or os.cpu_count() or 1
+    n_tasks = len(cfg.temperatures_K) * len(cfg.widths_H_nm)
+    pool = None
+    if size == 1 and not args.check_only and min(workers, n_tasks) > 1:
+        # the workers start (imports, compiled engine) while the EOS states are computed
+        pool = start_local_pool(min(workers, n_tasks))
+    try:
+        plan = make_plan(cfg)  # EOS states: may still refuse a state (one line, exit 2)
+        return _build(args, cfg, plan, version, workers, pool, size, rank, t_start)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _build(args, cfg, plan, version, workers, pool, size, rank, t_start) -> int:  # noqa: ANN001, PLR0913
+    from ..assemble import assemble_kernel
+    from ..library import write_kernel
+    from ..runner import BuildLock, BuildLog, progress_bar, run_tasks_local, run_tasks_mpi
+
+    say = print if rank == 0 else (lambda *a, **k: None)
     say(
         f"{cfg.name} v{version}: {cfg.probe.name}, {len(cfg.temperatures_K)} temperature(s) x "
         f"{len(cfg.widths_H_nm)} widths x {len(cfg.pressures.values)} pressures"
@@ -122,7 +134,7 @@ def _run(args: argparse.Namespace, size: int, rank: int) -> int:
             if size > 1:
                 report = run_tasks_mpi(plan, log, bar if rank == 0 else None)
             else:
-                report = run_tasks_local(plan, workers, log, bar)
+                report = run_tasks_local(plan, workers, log, bar, pool=pool)
         if rank != 0:
             return 0
         missing_tasks = pending_tasks(plan)
