@@ -93,7 +93,7 @@ def _start_config(model: PoreModel, state: ThermoState, moves: int, seed: int) -
 def _converged(r) -> tuple[bool, float]:
     m = r.replica_means
     rel = abs(m[0] - m[1]) / max(abs(0.5 * (m[0] + m[1])), 1e-12)
-    drift_ok = not any(f.startswith("drift") for f in r.flags)
+    drift_ok = not any(f.startswith(("drift", "not_bracketed")) for f in r.flags)
     return bool(drift_ok and rel <= 0.01 and r.molecules_mean > 0), float(rel)
 
 

@@ -62,6 +62,8 @@ class SamplingSettings:
     #: in one packing is caught by the replicas' disagreement (benchmarks/README.md,
     #: "Sampling efficiency"): block errors alone read small while the mean is still wrong.
     replicas: int = 2
+    #: the over-filled start: half an equilibration at this multiple of the activity; a point
+    #: whose second replica did not start above the first one's mean is flagged not_bracketed
     overfill_factor: float = 20.0
     #: stop production when the relative standard error of N reaches this (0: fixed length)
     target_rel_stderr: float = 0.0
@@ -154,6 +156,7 @@ class _ReplicaRun:
     t0: int
     k_trials: int
     acceptance: dict[str, float]
+    start_n: int = -1  # molecules when production-side equilibration began (over-filled start)
 
 
 Progress = Callable[[int], None]
@@ -249,11 +252,13 @@ def _run_replica(
     clock = [0.0]
     eq = settings.equilibration_moves
     moves = 0
+    start_n = -1
     if overfill:
         box.activity_nm3 = z * settings.overfill_factor
         _equilibrate(box, eq // 2, settings, progress, clock)
         moves += eq // 2
         box.activity_nm3 = z
+        start_n = box.n_molecules
     _equilibrate(box, eq, settings, progress, clock)
     moves += eq
     n, uff, usf, prof, pmoves = _produce(box, settings, progress, clock)
@@ -273,6 +278,7 @@ def _run_replica(
         t0=t0,
         k_trials=int(box.ip[5]),
         acceptance=acc,
+        start_n=start_n,
     )
 
 
@@ -386,6 +392,13 @@ def _analyse(
         )
         if not ok:
             flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
+    if len(runs) >= 2 and means[0] >= 1.0 and 0 <= runs[1].start_n <= means[0]:
+        # the two-sided check needs the second replica to come from above (below one molecule
+        # on average the replicas mix at once and the over-fill may land on N = 0 by chance)
+        flags.append(
+            f"not_bracketed: the over-filled replica started at N = {runs[1].start_n}, not above "
+            f"the first replica's mean {means[0]:.4g}"
+        )
     # Pool the replicas (inverse-variance weights where errors are available).
     w = np.array([1.0 / e**2 if e > 0 else 0.0 for e in errs])
     if w.sum() > 0 and all(e > 0 for e in errs):
@@ -417,7 +430,8 @@ def _analyse(
     bulk = state.bulk_density_per_nm3
     excess = density - bulk if math.isfinite(bulk) else float("nan")
     converged = not any(
-        f.startswith(("drift", "replicas_disagree", "error_unreliable", "too_few")) for f in flags
+        f.startswith(("drift", "replicas_disagree", "error_unreliable", "too_few", "not_bracketed"))
+        for f in flags
     )
     if (
         settings.target_rel_stderr > 0

@@ -371,3 +371,40 @@ def test_simulate_point_is_deterministic_in_its_seed() -> None:
 
     assert numbers(a) == numbers(b)
     assert a.molecules_mean != c.molecules_mean
+
+
+def _dense_methane_pore() -> tuple[PoreModel, ThermoState]:
+    probe = get_probe("methane")
+    model = PoreModel(
+        probe=probe,
+        solid=default_solid(),
+        geometry=SLIT,
+        cutoff_nm=3 * probe.sigma_nm,
+        box_nm=3.8,
+        width_nm=0.8,
+    )
+    return model, ThermoState(temperature_K=298.15, fugacity_Pa=3.0e6)
+
+
+def test_second_replica_starts_above_the_first_or_the_point_is_flagged() -> None:
+    """Two-sided convergence check: the second replica starts over-filled (half an
+    equilibration at 20 z), above the first replica's mean; one that did not start above
+    (here: emptied at 1e-6 z instead of over-filled) flags the point as not bracketed, hence
+    unconverged, whatever the replicas' agreement."""
+    model, state = _dense_methane_pore()
+    base = dict(
+        equilibration_moves=20_000,
+        production_moves=40_000,
+        sample_every=100,
+        insertion_trials=1,
+        replicas=2,
+    )
+    ok = simulate_point(model, state, SamplingSettings(**base), 7).result
+    assert not any(f.startswith("not_bracketed") for f in ok.flags), ok.flags
+    # "over-filling" at 1e-6 of the activity empties the pore: the second replica starts
+    # from (nearly) nothing, below the first one's mean
+    low = SamplingSettings(**base, overfill_factor=1e-6)
+    bad = simulate_point(model, state, low, 7).result
+    assert bad.replica_means[0] > 0
+    assert any(f.startswith("not_bracketed") for f in bad.flags), bad.flags
+    assert not bad.converged
