@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 
 from . import statistics as st
+from .engine import C_DEL_ACC, C_INS_ACC
 from .henry import pore_limit
 from .model import SLIT, PoreModel
 from .rng import seed_state
@@ -157,9 +158,14 @@ class _ReplicaRun:
     k_trials: int
     acceptance: dict[str, float]
     start_n: int = -1  # molecules when production-side equilibration began (over-filled start)
+    exchanges: int = -1  # accepted insertions + deletions during production
 
 
 Progress = Callable[[int], None]
+
+#: A replica must accept at least this many insertions + deletions in production (and at
+#: least as many as the molecules it holds) for its mean N to count as sampled.
+MIN_EXCHANGES = 20
 
 
 def _equilibrate(
@@ -264,6 +270,7 @@ def _run_replica(
     n, uff, usf, prof, pmoves = _produce(box, settings, progress, clock)
     moves += pmoves
     acc = box.acceptance()
+    exchanges = int(box.counters[C_INS_ACC] + box.counters[C_DEL_ACC])
     t0 = 0
     if len(n) >= 40 and np.ptp(n) > 0:
         t0, _, _ = st.detect_equilibration(n.astype(float))
@@ -279,6 +286,7 @@ def _run_replica(
         k_trials=int(box.ip[5]),
         acceptance=acc,
         start_n=start_n,
+        exchanges=exchanges,
     )
 
 
@@ -392,6 +400,15 @@ def _analyse(
         )
         if not ok:
             flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
+    for i, r in enumerate(runs):
+        # N changes only through the reservoir: a replica that exchanged fewer molecules than
+        # it holds has not renewed its content even once, and its mean (and any error from
+        # it) reflects the preparation more than the activity (a frozen, solid-like packing)
+        if 0 <= r.exchanges < max(MIN_EXCHANGES, means[i]):
+            flags.append(
+                f"few_exchanges[{i}]: {r.exchanges} accepted insertions + deletions in "
+                f"production for N = {means[i]:.4g}"
+            )
     if len(runs) >= 2 and means[0] >= 1.0 and 0 <= runs[1].start_n <= means[0]:
         # the two-sided check needs the second replica to come from above (below one molecule
         # on average the replicas mix at once and the over-fill may land on N = 0 by chance)
@@ -430,7 +447,9 @@ def _analyse(
     bulk = state.bulk_density_per_nm3
     excess = density - bulk if math.isfinite(bulk) else float("nan")
     converged = not any(
-        f.startswith(("drift", "replicas_disagree", "error_unreliable", "too_few", "not_bracketed"))
+        f.startswith(
+            ("drift", "replicas_disagree", "error_unreliable", "too_few", "not_bracketed", "few_ex")
+        )
         for f in flags
     )
     if (

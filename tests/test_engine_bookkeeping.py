@@ -408,3 +408,38 @@ def test_second_replica_starts_above_the_first_or_the_point_is_flagged() -> None
     assert bad.replica_means[0] > 0
     assert any(f.startswith("not_bracketed") for f in bad.flags), bad.flags
     assert not bad.converged
+
+
+def test_a_replica_that_barely_exchanged_is_flagged() -> None:
+    """N changes only through insertions and deletions: a replica whose production accepted
+    fewer of them than it holds molecules (a frozen packing: the filled 3 sigma pore at 87 K,
+    benchmarks/README.md) is flagged few_exchanges and the point is unconverged, even when
+    its N series looks perfectly stationary; the same series with ample exchanges is not."""
+    from gcmc.sampler import _analyse, _ReplicaRun
+
+    model, state = _dense_methane_pore()
+    box = Box(model, 298.15, state.activity_nm3)
+    rng = np.random.default_rng(0)
+    settings = SamplingSettings(replicas=1, sample_every=100)
+
+    def run(exchanges: int) -> _ReplicaRun:
+        n = 180 + rng.integers(-2, 3, size=4000)  # stationary, uncorrelated
+        u = -1000.0 * n + rng.normal(0, 50, size=n.size)
+        return _ReplicaRun(
+            n=n,
+            uff=u,
+            usf=u,
+            profile=np.zeros(box.n_bins),
+            box=box,
+            moves=400_000,
+            seconds=1.0,
+            t0=0,
+            k_trials=1,
+            acceptance={},
+            exchanges=exchanges,
+        )
+
+    starved = _analyse(model, state, settings, [run(60)]).result
+    assert any(f.startswith("few_exchanges[0]") for f in starved.flags) and not starved.converged
+    ample = _analyse(model, state, settings, [run(5000)]).result
+    assert not any(f.startswith("few_exchanges") for f in ample.flags), ample.flags
