@@ -2,10 +2,11 @@
 peak memory of the processes that run tasks.
 
 The grid is 8 tasks (methane at 298.15 K, H = 1.0 - 1.7 nm, 8 pressures each) of a similar
-cost, ~12 s each on one core, so that what is measured is the parallel machinery (spawning
-workers, each loading the numba cache and the EOS, the task queue, the assembly) and not the
-balance of unequal tasks; the balance is the subject of schedule_replay.py. Every number is
-end-to-end: `python -m gcmc.cli build` from start to exit, imports and writing included.
+cost, ~41 s each on one core (two replicas per point, the default), so that what is measured
+is the parallel machinery (spawning workers, each loading the numba cache, the task queue,
+the assembly) and not the balance of unequal tasks; the balance is the subject of
+schedule_replay.py. Every number is end-to-end: `python -m gcmc.cli build` from start to
+exit, imports and writing included.
 
 Memory: the process tree of the build is sampled every 0.2 s; for every process that runs
 tasks (the build itself with 1 worker, the pool workers with 2) it reports the peak resident
@@ -18,7 +19,7 @@ The machine may be shared: before each run the script waits (up to 30 min) until
 processes use less than 0.15 core, and it reports the cores they used during each run
 (machine-wide busy time from /proc/stat minus the build's own CPU time).
 
-    python benchmarks/bench_scaleout.py            # ~2 minutes on 2 idle cores
+    python benchmarks/bench_scaleout.py            # ~9 minutes on 2 idle cores
 """
 
 from __future__ import annotations

@@ -7,15 +7,43 @@ benchmarks/schedule_replay.py (benchmarks/README.md, "Scheduling efficiency").
 
 from __future__ import annotations
 
+import tomllib
+from pathlib import Path
+
 import numpy as np
 import pytest
 
 from gcmc.build import make_plan
-from gcmc.config import parse_config
+from gcmc.config import RunConfig, parse_config
 from gcmc.cost import CAPACITY_RHO_SIGMA3, estimate_task_cost, estimated_loading_per_nm3
 from gcmc.eos import make_eos
 from gcmc.henry import pore_limit
 from gcmc.model import SLIT, PoreModel, default_solid, get_probe
+
+
+def _methane_config(widths: list[float], sampling: bool = False) -> RunConfig:
+    """A methane run config at 298.15 K, 1 kPa - 3.5 MPa (6 pressures), over these widths."""
+    text = f"""
+seed = 1
+[kernel]
+name = "order"
+output = "out"
+[probe]
+library_name = "methane"
+[widths]
+H_nm = {widths!r}
+[temperatures]
+K = [298.15]
+[pressures]
+from_Pa = 1.0e3
+to_Pa = 3.5e6
+count = 6
+"""
+    if sampling:
+        text += (
+            "[sampling]\nequilibration_moves = 1000\nproduction_moves = 4000\nsample_every = 20\n"
+        )
+    return parse_config(tomllib.loads(text), text, Path("order.toml"))
 
 
 def _model(h: float, probe: str = "methane") -> PoreModel:
@@ -70,30 +98,7 @@ def test_blocked_pore_costs_nothing_and_cost_scales_with_work() -> None:
 
 
 def test_plan_orders_tasks_by_the_estimate() -> None:
-    text = """
-seed = 1
-[kernel]
-name = "order"
-output = "out"
-[probe]
-library_name = "methane"
-[widths]
-H_nm = [0.7, 1.0, 1.5, 2.0]
-[temperatures]
-K = [298.15]
-[pressures]
-from_Pa = 1.0e3
-to_Pa = 3.5e6
-count = 6
-[sampling]
-equilibration_moves = 1000
-production_moves = 4000
-sample_every = 20
-"""
-    import tomllib
-    from pathlib import Path
-
-    cfg = parse_config(tomllib.loads(text), text, Path("order.toml"))
+    cfg = _methane_config([0.7, 1.0, 1.5, 2.0], sampling=True)
     plan = make_plan(cfg)
     costs = [t.estimated_cost for t in plan.tasks]
     assert costs == sorted(costs, reverse=True)
@@ -103,28 +108,9 @@ sample_every = 20
 def test_resumed_build_rescales_the_estimate_by_measured_neighbours(tmp_path, monkeypatch) -> None:  # noqa: ANN001, E501
     """learned_order: a pending task whose finished neighbour cost 10x its estimate goes
     before one with a larger estimate whose neighbour cost what was estimated."""
-    import tomllib
-    from pathlib import Path
-
     import gcmc.build as B
 
-    text = """
-seed = 1
-[kernel]
-name = "order"
-output = "out"
-[probe]
-library_name = "methane"
-[widths]
-H_nm = [0.7, 0.8, 1.6, 1.8]
-[temperatures]
-K = [298.15]
-[pressures]
-from_Pa = 1.0e3
-to_Pa = 3.5e6
-count = 6
-"""
-    cfg = parse_config(tomllib.loads(text), text, Path("order.toml"))
+    cfg = _methane_config([0.7, 0.8, 1.6, 1.8])
     plan = make_plan(cfg)
     est = {t.w_index: t.estimated_cost for t in plan.tasks}
     assert est[0] > est[1] > est[2] > 0  # narrow pores estimated dearer (see above)
