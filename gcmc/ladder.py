@@ -263,6 +263,9 @@ class _Ladder:
                     break
 
     def replica_runs(self) -> list[_ReplicaRun]:
+        # start_n and exchanges stay unset (-1): swaps between rungs renew a rung's content
+        # too, so the point-wise sampler's not_bracketed and few_exchanges tests do not apply
+        # as they stand (the drift, agreement and error tests do)
         runs = []
         for k, rung in enumerate(self.rungs):
             box = self.boxes[k]
