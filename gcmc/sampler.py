@@ -404,7 +404,9 @@ def _analyse(
         # N changes only through the reservoir: a replica that exchanged fewer molecules than
         # it holds has not renewed its content even once, and its mean (and any error from
         # it) reflects the preparation more than the activity (a frozen, solid-like packing)
-        if 0 <= r.exchanges < max(MIN_EXCHANGES, means[i]):
+        # (below one molecule on average the pore is mostly empty and the block error of N,
+        # Poisson-like, already says how well it is known)
+        if means[i] >= 1.0 and 0 <= r.exchanges < max(MIN_EXCHANGES, means[i]):
             flags.append(
                 f"few_exchanges[{i}]: {r.exchanges} accepted insertions + deletions in "
                 f"production for N = {means[i]:.4g}"
