@@ -174,6 +174,8 @@ def _failure_line(plan, task) -> str:  # noqa: ANN001
 
 
 def _summary(plan, data, fits, report, path, seconds) -> None:  # noqa: ANN001
+    from .kernel import _flag_tokens
+
     pts = data.points["adsorption"]
     n = pts["density_per_nm3"]
     e = pts["density_per_nm3_stderr"]
@@ -191,6 +193,11 @@ def _summary(plan, data, fits, report, path, seconds) -> None:  # noqa: ANN001
         ("failures", str(len(report.failed))),
         ("unconverged / flagged", f"{unconverged} / {flagged}"),
     ]
+    kinds = Counter()
+    for branch_flags in data.flags.values():
+        kinds += _flag_tokens(branch_flags)
+    if kinds:  # what the flags say, all branches (meanings: kernels/README.md)
+        rows.append(("flags", ", ".join(f"{k} x{v}" for k, v in kinds.most_common())))
     if worst is not None:
         t, w, k = worst
         rows.append(
