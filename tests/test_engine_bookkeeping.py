@@ -135,18 +135,23 @@ def bulk_lj_box(k: int, seed: int) -> Box:
     return Box(model, 1.5 * 120.0, z, EngineOptions(insertion_trials=k), rng_state=seed_state(seed))
 
 
-def slit_box(k: int, seed: int, slab_tail: bool = True) -> Box:
-    """Methane at 298.15 K and 20 MPa fugacity in a 1.2 nm graphite slit: a dense, two-layer
-    pore fluid with frequent exchanges."""
+def methane_slit(width_nm: float) -> PoreModel:
+    """Methane (TraPPE-UA LJ) in a graphite slit of width H, r_c = 3 sigma, 3.8 nm lateral box."""
     probe = get_probe("methane")
-    model = PoreModel(
+    return PoreModel(
         probe=probe,
         solid=default_solid(),
         geometry=SLIT,
         cutoff_nm=3.0 * probe.sigma_nm,
         box_nm=3.8,
-        width_nm=1.2,
+        width_nm=width_nm,
     )
+
+
+def slit_box(k: int, seed: int, slab_tail: bool = True) -> Box:
+    """Methane at 298.15 K and 20 MPa fugacity in a 1.2 nm graphite slit: a dense, two-layer
+    pore fluid with frequent exchanges."""
+    model = methane_slit(1.2)
     return Box(
         model,
         298.15,
@@ -345,15 +350,7 @@ def test_coincident_positions_are_an_overlap(geometry: str) -> None:
 def test_simulate_point_is_deterministic_in_its_seed() -> None:
     """The result is a pure function of (model, state, settings, seed): same seed, same numbers
     (CONVENTIONS: reproducible streams); a different seed gives a different trajectory."""
-    probe = get_probe("methane")
-    model = PoreModel(
-        probe=probe,
-        solid=default_solid(),
-        geometry=SLIT,
-        cutoff_nm=3 * probe.sigma_nm,
-        box_nm=3.8,
-        width_nm=1.0,
-    )
+    model = methane_slit(1.0)
     state = ThermoState(temperature_K=298.15, fugacity_Pa=1.0e6)
     settings = SamplingSettings(
         replicas=1,
@@ -374,15 +371,7 @@ def test_simulate_point_is_deterministic_in_its_seed() -> None:
 
 
 def _dense_methane_pore() -> tuple[PoreModel, ThermoState]:
-    probe = get_probe("methane")
-    model = PoreModel(
-        probe=probe,
-        solid=default_solid(),
-        geometry=SLIT,
-        cutoff_nm=3 * probe.sigma_nm,
-        box_nm=3.8,
-        width_nm=0.8,
-    )
+    model = methane_slit(0.8)
     return model, ThermoState(temperature_K=298.15, fugacity_Pa=3.0e6)
 
 
