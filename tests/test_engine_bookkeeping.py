@@ -380,7 +380,8 @@ def test_second_replica_starts_above_the_first_or_the_point_is_flagged() -> None
     equilibration at 20 z), above the first replica's mean; one that did not start above
     (here: emptied at 1e-6 z instead of over-filled) flags the point as not bracketed, hence
     unconverged, whatever the replicas' agreement."""
-    model, state = _dense_methane_pore()
+    model = methane_slit(1.2)
+    state = ThermoState(temperature_K=298.15, fugacity_Pa=1.0e6)
     base = dict(
         equilibration_moves=20_000,
         production_moves=40_000,
@@ -432,3 +433,56 @@ def test_a_replica_that_barely_exchanged_is_flagged() -> None:
     assert any(f.startswith("few_exchanges[0]") for f in starved.flags) and not starved.converged
     ample = _analyse(model, state, settings, [run(5000)]).result
     assert not any(f.startswith("few_exchanges") for f in ample.flags), ample.flags
+
+
+def test_target_error_stops_easy_points_early_and_hard_ones_at_the_budget() -> None:
+    """Stop when done: with a target relative error, a two-layer methane pore fluid (1.2 nm,
+    1 MPa, well exchanging) stops long before its move budget, meets the target and is
+    converged; an unreachable target uses the whole budget and says so (target_not_reached,
+    unconverged)."""
+    model = methane_slit(1.2)
+    state = ThermoState(temperature_K=298.15, fugacity_Pa=1.0e6)
+    base = dict(
+        equilibration_moves=20_000,
+        production_moves=40_000,
+        sample_every=50,
+        insertion_trials=1,
+        replicas=2,
+        max_production_moves=2_000_000,
+    )
+    easy = simulate_point(model, state, SamplingSettings(**base, target_rel_stderr=0.02), 3)
+    r = easy.result
+    budget_all = 2 * (2_000_000 + 20_000) + 10_000  # replicas x (budget + eq) + over-fill
+    assert r.moves < 0.5 * budget_all, r.moves
+    assert r.molecules_stderr / r.molecules_mean <= 0.02 and r.converged, r.flags
+    hard = simulate_point(model, state, SamplingSettings(**base, target_rel_stderr=1e-5), 3)
+    assert hard.result.moves == budget_all
+    assert any(f.startswith("target_not_reached") for f in hard.result.flags)
+    assert not hard.result.converged
+
+
+def test_replicas_run_on_until_they_agree() -> None:
+    """The stopping rule of _produce_replicas with scripted replicas: each meets its own
+    target from the first check, but their means agree (within 3 combined errors) only from
+    the fourth chunk on; production stops there, not before, and not later."""
+    from gcmc.sampler import _produce_replicas
+
+    class Scripted:
+        def __init__(self, means: list[float]) -> None:
+            self.means, self.chunk, self.calls = means, 1, 0
+
+        @property
+        def exhausted(self) -> bool:
+            return self.calls >= len(self.means)
+
+        def produce(self, moves: int) -> None:
+            self.calls += 1
+
+        def meets_target(self) -> tuple[bool, float, float]:
+            return True, self.means[self.calls - 1], 0.1
+
+    a = Scripted([10.0, 10.0, 10.0, 10.0, 10.0, 10.0])
+    b = Scripted([12.0, 11.5, 11.0, 10.2, 10.1, 10.0])
+    settings = SamplingSettings(target_rel_stderr=0.01, agreement_rel=0.0)
+    _produce_replicas([a, b], settings)  # type: ignore[list-item]
+    assert a.calls == b.calls == 4
