@@ -54,14 +54,19 @@ NEIGHBOURS_PER_OVERHEAD = 30.0
 BINS_PER_OVERHEAD = 250.0
 
 
+def _langmuir_fraction(slope: float, fugacity_pa: np.ndarray, capacity: float) -> np.ndarray:
+    """theta = K f / (c + K f): a Langmuir form with slope K at zero fugacity and capacity c."""
+    kf = slope * np.asarray(fugacity_pa, dtype=float)
+    return kf / (capacity + kf)
+
+
 def estimated_loading_per_nm3(
     henry_per_nm3_per_pa: float, fugacity_pa: np.ndarray, sigma_nm: float
 ) -> np.ndarray:
     """Langmuir estimate of the density per pore volume: the exact Henry slope at low
     fugacity, a liquid-like capacity at high fugacity."""
     cap = CAPACITY_RHO_SIGMA3 / sigma_nm**3
-    kf = henry_per_nm3_per_pa * np.asarray(fugacity_pa, dtype=float)
-    return kf * cap / (cap + kf)
+    return cap * _langmuir_fraction(henry_per_nm3_per_pa, fugacity_pa, cap)
 
 
 def estimated_coverage(
@@ -70,8 +75,7 @@ def estimated_coverage(
     """Langmuir estimate of the fractional coverage of one wall: the exact Henry slope per
     wall area, a close-packed monolayer (2 / (sqrt 3 sigma^2) molecules per nm^2) as capacity."""
     cap = 2.0 / (math.sqrt(3.0) * sigma_nm**2)
-    kf = henry_per_nm2_per_pa * np.asarray(fugacity_pa, dtype=float)
-    return kf / (cap + kf)
+    return _langmuir_fraction(henry_per_nm2_per_pa, fugacity_pa, cap)
 
 
 def estimate_task_cost(

@@ -169,6 +169,25 @@ Progress = Callable[[int], None]
 MIN_EXCHANGES = 20
 
 
+def _too_few_exchanges(exchanges: int, mean_n: float) -> bool:
+    """N changes only through the reservoir: a replica holding a molecule or more on average
+    that accepted fewer insertions + deletions than it holds (or than MIN_EXCHANGES) has not
+    renewed its content even once, and its mean (and any error from it) reflects the
+    preparation more than the activity (a frozen, solid-like packing). Below one molecule the
+    pore is mostly empty and the Poisson-like block error already states the precision.
+    ``exchanges`` < 0: not recorded (replica-exchange rungs)."""
+    return mean_n >= 1.0 and 0 <= exchanges < max(MIN_EXCHANGES, mean_n)
+
+
+def _replicas_agree(
+    settings: SamplingSettings, m0: float, e0: float, m1: float, e1: float
+) -> tuple[float, bool]:
+    """(z, agree) of two replicas' means: within agreement_z combined errors or agreement_rel."""
+    return st.agreement(
+        m0, e0, m1, e1, threshold=settings.agreement_z, rel_tol=settings.agreement_rel
+    )
+
+
 def _equilibrate(
     box: Box, moves: int, settings: SamplingSettings, progress: Progress | None, clock: list[float]
 ) -> None:
@@ -304,7 +323,7 @@ class _Replica:
             and mean > 0
             and err / mean <= self.settings.target_rel_stderr
             and st.drift_test(x).passed
-            and not (mean >= 1.0 and self.exchanges < max(MIN_EXCHANGES, mean))
+            and not _too_few_exchanges(self.exchanges, mean)
         )
         return bool(ok), mean, err
 
@@ -353,14 +372,7 @@ def _produce_replicas(reps: list[_Replica], settings: SamplingSettings) -> None:
         if not all(c[0] for c in checks):
             continue
         if len(reps) >= 2:
-            _, agree = st.agreement(
-                checks[0][1],
-                checks[0][2],
-                checks[1][1],
-                checks[1][2],
-                threshold=settings.agreement_z,
-                rel_tol=settings.agreement_rel,
-            )
+            _, agree = _replicas_agree(settings, *checks[0][1:], *checks[1][1:])
             if not agree:
                 continue
         break
@@ -467,23 +479,11 @@ def _analyse(
                 flags.append(f"drift[{i}]: first vs second half z = {d.z_score:.1f}")
     agree_z = 0.0
     if len(runs) >= 2:
-        agree_z, ok = st.agreement(
-            means[0],
-            errs[0],
-            means[1],
-            errs[1],
-            threshold=settings.agreement_z,
-            rel_tol=settings.agreement_rel,
-        )
+        agree_z, ok = _replicas_agree(settings, means[0], errs[0], means[1], errs[1])
         if not ok:
             flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
     for i, r in enumerate(runs):
-        # N changes only through the reservoir: a replica that exchanged fewer molecules than
-        # it holds has not renewed its content even once, and its mean (and any error from
-        # it) reflects the preparation more than the activity (a frozen, solid-like packing)
-        # (below one molecule on average the pore is mostly empty and the block error of N,
-        # Poisson-like, already says how well it is known)
-        if means[i] >= 1.0 and 0 <= r.exchanges < max(MIN_EXCHANGES, means[i]):
+        if _too_few_exchanges(r.exchanges, means[i]):
             flags.append(
                 f"few_exchanges[{i}]: {r.exchanges} accepted insertions + deletions in "
                 f"production for N = {means[i]:.4g}"
