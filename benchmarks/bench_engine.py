@@ -1,7 +1,7 @@
 """Engine speed: trial moves per second of the numba engine against a C reference.
 
 The C reference (benchmarks/engine_ref.c) is compiled here with the system's C compiler and
-loaded with ctypes. It runs on the very arrays of a gcmc.simulation.Box, so both engines
+loaded with ctypes. It runs on the very arrays of a gcmc.sampling.box.Box, so both engines
 start from the same configuration, cell list, parameters and xoshiro256** state and make
 the same moves: each timed segment is the *same* trajectory run twice, once per engine
 (checked: the final N and move counters must agree), alternating numba / C / C / numba ...
@@ -11,7 +11,7 @@ the repeats is reported for each engine, and the ratio is the median of the per-
 ratios.
 
 States (Lennard-Jones units sigma, epsilon; argon-like probe epsilon/k = 119.8 K,
-sigma = 0.3405 nm, Rowley, Nicholson & Parsonage 1975, as configs/probes.toml):
+sigma = 0.3405 nm, Rowley, Nicholson & Parsonage 1975, as gcmc/physics/data/probes.toml):
 
 - bulk rho* = 0.1 and 0.5 at T* = 2.0 (supercritical: a dilute gas and a dense fluid) and
   rho* = 0.8 at T* = 1.0 (compressed liquid, P* ~ 1), each with r_c = 2.5 and 5 sigma and the
@@ -19,7 +19,7 @@ sigma = 0.3405 nm, Rowley, Nicholson & Parsonage 1975, as configs/probes.toml):
   state of Thol et al., J. Phys. Chem. Ref. Data 45 (2016) 023101 (teqp):
   z = rho exp(a_r + rho da_r/drho). The truncated-plus-tail model is close to the full one,
   so GCMC at that activity settles near the target density (the measured rho* is printed).
-- slit pores H = 3 and 10 sigma (nucleus to nucleus, graphite walls of configs/solids.toml
+- slit pores H = 3 and 10 sigma (nucleus to nucleus, graphite walls of gcmc/physics/data/solids.toml
   values), T* = 87/119.8 = 0.726 (argon at 87 K), r_c = 3 sigma (project default, with the
   slab tail), lateral edge 12 sigma; activity 0.9 x the saturation activity of the same LJ
   equation of state (z_sat sigma^3 = 0.00262), which fills both pores with liquid.
@@ -155,7 +155,7 @@ class Reference:
         E = engine_module
         lib.ref_layout_check.restype = ctypes.c_int64
         if lib.ref_layout_check() != E.N_FPARAMS * 1000 + E.N_IPARAMS:
-            raise RuntimeError("engine_ref.c parameter layout differs from gcmc.engine")
+            raise RuntimeError("engine_ref.c parameter layout differs from gcmc.sampling.engine")
         f = lib.ref_run_moves
         f.restype = ctypes.c_int64
         f.argtypes = [ctypes.c_int64] + [ctypes.c_void_p] * 14 + [ctypes.c_int64] * 2
@@ -241,9 +241,9 @@ def make_state(spec: StateSpec, prep_sweeps: float, cells_per_cutoff: int = 1, t
     """A Box at the state, equilibrated by GCMC (see the module docstring). With
     ``tile_from`` (the prepared small Box), start from 2 x 2 x 2 copies of it (bulk) or from
     a lattice of 8 x its molecules (slit)."""
-    from gcmc.model import BULK, SLIT, PoreModel, Probe, Solid
-    from gcmc.rng import seed_state
-    from gcmc.simulation import Box, EngineOptions
+    from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, Solid
+    from gcmc.sampling.box import Box, EngineOptions
+    from gcmc.sampling.rng import seed_state
 
     seed = zlib.crc32(spec.name.encode())
 
@@ -296,7 +296,7 @@ def make_state(spec: StateSpec, prep_sweeps: float, cells_per_cutoff: int = 1, t
         box.max_displacement_nm = tile_from.max_displacement_nm
     else:
         box.load_positions(_lattice(max(n0, 1), lo, hi, rng))
-    # equilibrate: displacement step adapted to 40 % acceptance (as gcmc.sampler does)
+    # equilibrate: displacement step adapted to 40 % acceptance (as gcmc.sampling.point does)
     n_moves = int(prep_sweeps * max(box.n_molecules, 50))
     for _ in range(10):
         box.reset_counters()
@@ -462,8 +462,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--json", default="", help="write the results to this JSON file")
     args = ap.parse_args(argv)
     sys.path.insert(0, str(Path(args.gcmc).resolve()) if args.gcmc else str(HERE.parent))
-    from gcmc import engine as E
-    from gcmc.simulation import warm_up
+    from gcmc.sampling import engine as E
+    from gcmc.sampling.box import warm_up
 
     repeats = args.repeats or (4 if args.quick else 5)
     seconds = args.seconds or (0.1 if args.quick else 0.12)

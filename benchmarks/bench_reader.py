@@ -19,10 +19,10 @@ from pathlib import Path
 
 import numpy as np
 
-from gcmc import forms
-from gcmc.kernel_data import FitRecord, KernelData
-from gcmc.library import config_hash, write_kernel
-from gcmc.reader import open_kernel
+from gcmc.kernel import forms
+from gcmc.kernel.data import FitRecord, KernelData
+from gcmc.kernel.reader import open_kernel
+from gcmc.kernel.writer import config_hash, write_kernel
 
 K_B = 1.380649e-23
 

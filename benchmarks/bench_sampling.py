@@ -8,7 +8,7 @@ Regimes (lateral box 10 sigma, r_c = 3 sigma, Steele graphite walls):
 - ``ch4-3s-supercritical``: methane at 298.15 K, 3 MPa, 3 sigma slit (H = 1.12 nm)
 
 Methods: plain insertion (k = 1); Rosenbluth-biased insertion with k = 64 and k = 256; replica
-exchange along a short ladder (p x {0.8, 1, 1.25}, plain insertion, gcmc.ladder).
+exchange along a short ladder (p x {0.8, 1, 1.25}, plain insertion, gcmc.sampling.ladder).
 
 A point is converged when its two replicas, one started from the previous lower-pressure state
 (p/2, prepared by a short plain run that is not charged to the method) and one from an
@@ -33,11 +33,11 @@ os.environ.setdefault("NUMBA_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
 
-from gcmc.eos import make_eos  # noqa: E402
-from gcmc.ladder import simulate_ladder  # noqa: E402
-from gcmc.model import SLIT, PoreModel, default_solid, get_probe  # noqa: E402
-from gcmc.sampler import SamplingSettings, ThermoState, simulate_point  # noqa: E402
-from gcmc.simulation import Box, EngineOptions, warm_up  # noqa: E402
+from gcmc.physics.eos import make_eos  # noqa: E402
+from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe  # noqa: E402
+from gcmc.sampling.box import Box, EngineOptions, warm_up  # noqa: E402
+from gcmc.sampling.ladder import simulate_ladder  # noqa: E402
+from gcmc.sampling.point import SamplingSettings, ThermoState, simulate_point  # noqa: E402
 
 REGIMES = {
     "ar-3s-filled": ("argon", 87.3, 3.0, ("relative", 0.1)),

@@ -176,7 +176,7 @@ def run_build(workers: int, eq: int, prod: int) -> dict:
     others = max(0.0, _cpu_busy_s() - busy0 - cpu) / wall  # cores used by other processes
     if proc.returncode != 0:
         raise SystemExit(f"build failed:\n{out}\n{err}")
-    from gcmc.reader import open_kernel
+    from gcmc.kernel.reader import open_kernel
 
     kernel = next((folder / "out").glob("scaleout-methane.v*.h5"))
     data = open_kernel(kernel).data
@@ -204,7 +204,7 @@ def run_build(workers: int, eq: int, prod: int) -> dict:
 def _task_phase(task_root: Path) -> float:
     """Wall time from the first task's start to the last task's end: a task file's mtime is
     its end, minus its measured seconds its start."""
-    from gcmc.build import load_task
+    from gcmc.pipeline.tasks import load_task
 
     spans = []
     for f in task_root.glob("*/t*.npz"):

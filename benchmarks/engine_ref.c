@@ -1,5 +1,5 @@
 /*
- * engine_ref.c: a C reference implementation of the GCMC move loop of gcmc/engine.py, for
+ * engine_ref.c: a C reference implementation of the GCMC move loop of gcmc/sampling/engine.py, for
  * the speed benchmark in bench_engine.py (compiled there with the system's cc, loaded with
  * ctypes).
  *
@@ -10,7 +10,7 @@
  * are reassociated by -ffast-math / numba's fastmath, so long trajectories drift apart at
  * the 1e-15 level and eventually diverge, as any two chaotic MC runs do).
  *
- * Conventions (as in gcmc/engine.py): nm, kelvin, energies E/k in K; arrays are C-contiguous
+ * Conventions (as in gcmc/sampling/engine.py): nm, kelvin, energies E/k in K; arrays are C-contiguous
  * int64 / float64; cell_xyz[c][axis][slot] with row length `cap`; nbr[c][k] with row length
  * `nbr_w`.
  *
@@ -34,7 +34,7 @@
 #define PAIR_LOOP 7
 #endif
 
-/* fparams / iparams / counters / energy indices: must match gcmc/engine.py */
+/* fparams / iparams / counters / energy indices: must match gcmc/sampling/engine.py */
 enum {
     F_LX, F_LY, F_LZ, F_INV_CX, F_INV_CY, F_INV_CZ, F_RC2, F_SIG2, F_EPS4, F_BETA, F_ZV,
     F_WALL_PRE, F_SIG_SF, F_DELTA, F_LRC_C, F_VOLUME, F_DMAX, F_P_DISPLACE, F_ROV2,
@@ -60,7 +60,7 @@ typedef struct {
 
 #define XYZ(S, c, a, s) ((S)->cell_xyz[((c) * 3 + (a)) * (S)->cap + (s)])
 
-/* ---- xoshiro256** (Blackman & Vigna, ACM TOMS 47 (2021) 36), as gcmc/rng.py */
+/* ---- xoshiro256** (Blackman & Vigna, ACM TOMS 47 (2021) 36), as gcmc/sampling/rng.py */
 static inline uint64_t rotl(uint64_t x, int k) { return (x << k) | (x >> (64 - k)); }
 
 static inline uint64_t next_u64(uint64_t *s)
@@ -270,7 +270,7 @@ static double pair_energy(const Sys *S, double x, double y, double z, int64_t c_
 
 static double slab_tail_sum(int64_t b, const int64_t *zbin_n, const double *tail, int64_t nbins)
 {
-    /* two contiguous runs (bins at and below b, bins above), as gcmc/engine.py */
+    /* two contiguous runs (bins at and below b, bins above), as gcmc/sampling/engine.py */
     double acc = 0.0;
     for (int64_t bb = 0; bb <= b; bb++)
         acc += (double)zbin_n[b - bb] * tail[bb];

@@ -1,7 +1,8 @@
 """Replay measured task costs through the build scheduler's policy, for 1 to 1024 ranks.
 
-The scheduler (gcmc/runner.py) hands tasks out one at a time, as ranks become free, in the
-order of gcmc.build: most expensive first, by the a-priori cost model on a first build and by
+The scheduler (gcmc/pipeline/runner.py) hands tasks out one at a time, as ranks become free, in the
+order of gcmc.pipeline.tasks: most expensive first, by the a-priori cost model on a first build and
+by
 the measured costs of finished tasks on a resumed one (``learned_order``). This script
 simulates that with a heap of rank-free times (list scheduling) and reports the parallel
 efficiency
@@ -12,8 +13,10 @@ for three policies:
 
 * ``measured-first``: dynamic hand-out, tasks sorted by their true cost (the learned order;
   the best this scheduler can do: longest-processing-time-first list scheduling);
-* ``estimate-first``: dynamic hand-out, sorted by the a-priori cost model of gcmc.build (what
-  a first build does; the model's order is the build's own, computed by gcmc.build.make_plan);
+* ``estimate-first``: dynamic hand-out, sorted by the a-priori cost model of gcmc.pipeline.tasks
+(what
+  a first build does; the model's order is the build's own, computed by
+  gcmc.pipeline.tasks.make_plan);
 * ``static-split``: the naive alternative, tasks in grid order cut into equal contiguous
   blocks, one per rank.
 
@@ -23,7 +26,7 @@ width), so for larger grids the costs are synthesised from it: each synthetic wi
 measured cost interpolated in log(cost) against H between the measured widths, times a
 multiplicative scatter resampled from the measured tasks' residuals about that interpolation
 (leave-one-out); temperatures repeat the width profile with fresh scatter (the cost's
-temperature dependence is not modelled). The a-priori estimate (gcmc.cost) of a synthetic
+temperature dependence is not modelled). The a-priori estimate (gcmc.pipeline.cost) of a synthetic
 width is interpolated in log(estimate) against H between the measured widths, like the cost.
 Start-up (imports, the numba cache, the EOS) and the final assembly are not part of the
 replay: they are measured by bench_scaleout.py.
@@ -108,10 +111,10 @@ def efficiencies(cost: np.ndarray, estimate: np.ndarray, ranks: int) -> dict[str
 
 def measured_costs(kernel: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(H per task, measured seconds, a-priori estimate) of every task of a kernel, in grid
-    order. The estimate comes from gcmc.build.make_plan on the kernel's own config text."""
-    from gcmc.build import make_plan
-    from gcmc.config import parse_config
-    from gcmc.reader import open_kernel
+    order. The estimate comes from gcmc.pipeline.tasks.make_plan on the kernel's own config text."""
+    from gcmc.kernel.reader import open_kernel
+    from gcmc.pipeline.config import parse_config
+    from gcmc.pipeline.tasks import make_plan
 
     data = open_kernel(kernel).data
     cfg = parse_config(tomllib.loads(data.config_text), data.config_text, kernel)
@@ -186,7 +189,16 @@ def ensure_replay_kernel(case: str = "methane") -> Path:
     cfg.write_text(text)
     # one worker: a task's measured cost is then its own, not shared with a second worker
     print(f"building the replay kernel once, 1 worker ({cfg}) ...", flush=True)
-    cmd = [sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress", "--workers", "1"]
+    cmd = [
+        sys.executable,
+        "-m",
+        "gcmc.cli",
+        "build",
+        str(cfg),
+        "--no-progress",
+        "--workers",
+        "1",
+    ]
     subprocess.run(cmd, check=True, cwd=REPO)
     return sorted((work / "out").glob(f"{name}.v*.h5"))[-1]
 

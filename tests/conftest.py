@@ -35,6 +35,6 @@ def pytest_configure(config: pytest.Config) -> None:
 @pytest.fixture(scope="session")
 def engine() -> float:
     """Load (or compile) the compiled engine once per session; returns the seconds it took."""
-    from gcmc.simulation import warm_up
+    from gcmc.sampling.box import warm_up
 
     return warm_up()

@@ -73,7 +73,7 @@ def _rank_tasks(cfg: Path) -> dict[str, int]:
 def test_runner_detects_the_mpi_job() -> None:
     """MPICH's Hydra sets PMI_SIZE/PMI_RANK (OpenMPI: OMPI_COMM_WORLD_SIZE); the runner must
     see 2 ranks under mpiexec -n 2, and 1 outside it."""
-    code = "from gcmc.runner import mpi_world_size; print(mpi_world_size())"
+    code = "from gcmc.pipeline.runner import mpi_world_size; print(mpi_world_size())"
     res = subprocess.run(
         [MPIEXEC, "-n", "2", sys.executable, "-c", code],
         env=subprocess_env(),

@@ -13,7 +13,7 @@ by field; dicts recursively), except the fields that record *when, where and how
 * ``provenance["created_utc"]``, ``["host"]``, ``["platform"]`` and ``["config_path"]``
   (each build runs on its own copy of the config, in its own folder).
 
-This is the project's reproducibility contract (see gcmc/build.py): a task's random stream
+This is the project's reproducibility contract (see gcmc/pipeline/tasks.py): a task's random stream
 depends only on the config's seed and the task's coordinates, never on the order of work.
 """
 
@@ -180,7 +180,7 @@ def check_ok(res: subprocess.CompletedProcess) -> None:
 
 
 def read_kernel(cfg: Path, name: str = TINY_NAME) -> Any:
-    from gcmc.reader import open_kernel
+    from gcmc.kernel.reader import open_kernel
 
     files = kernel_files(cfg, name)
     assert len(files) == 1, f"expected one kernel file, found {files}"
@@ -454,7 +454,7 @@ def test_lock_takeover_across_slurm_requeue(
     taken_over: bool,
 ) -> None:
     from gcmc.errors import InputError
-    from gcmc.runner import BuildLock
+    from gcmc.pipeline.runner import BuildLock
 
     for var, val in (("SLURM_JOB_ID", job), ("SLURM_RESTART_COUNT", restart)):
         if val is None:

@@ -1,5 +1,6 @@
-"""Kernel quality checks (gcmc.check), resolving power (gcmc.resolution), the reference inversion
-(gcmc.inversion), the report plots (gcmc.report) and `gcmc check` / `gcmc diff`.
+"""Kernel quality checks (gcmc.quality.criteria), resolving power (gcmc.quality.resolution), the
+reference inversion
+(gcmc.quality.inversion), the report plots (gcmc.quality.report) and `gcmc check` / `gcmc diff`.
 
 The kernels here are synthetic, invented test data: analytic single-pore isotherms whose
 constants vary smoothly with the pore width, "simulated" with a stated relative standard error
@@ -7,7 +8,8 @@ constants vary smoothly with the pore width, "simulated" with a stated relative 
 outside references used are named beside each check:
 * the Langmuir form and its exact Henry limit K_H = n_m b (I. Langmuir, J. Am. Chem. Soc. 40
   (1918) 1361), and a two-site (dual Langmuir) sum of two such terms;
-* the exact Henry constant of a Steele 10-4-3 slit pore by quadrature (gcmc.henry; W.A. Steele,
+* the exact Henry constant of a Steele 10-4-3 slit pore by quadrature (gcmc.physics.henry; W.A.
+Steele,
   Surf. Sci. 36 (1973) 317) for the methane-like kernel;
 * the exact distribution of the number of runs (A. Wald & J. Wolfowitz, Ann. Math. Statist. 11
   (1940) 147), checked against brute-force enumeration;
@@ -26,9 +28,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from gcmc import cli
-from gcmc import forms as F
-from gcmc.check import (
+from gcmc.cli import app as cli
+from gcmc.errors import InputError
+from gcmc.kernel import forms as F
+from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.reader import Kernel, open_kernel
+from gcmc.kernel.writer import write_kernel
+from gcmc.physics.units import BOLTZMANN_J_PER_K, MMOL_PER_CM3_PER_NM3, NM3_PER_M3
+from gcmc.quality.criteria import (
     CheckSettings,
     SyntheticPSD,
     diff_kernels,
@@ -38,13 +45,8 @@ from gcmc.check import (
     run_checks,
     runs_test,
 )
-from gcmc.errors import InputError
-from gcmc.inversion import gcv_value, invert, second_difference, solve_nnls_tikhonov
-from gcmc.kernel_data import POINT_FIELDS, FitRecord, KernelData
-from gcmc.library import write_kernel
-from gcmc.reader import Kernel, open_kernel
-from gcmc.resolution import NoiseModel, resolving_power
-from gcmc.units import BOLTZMANN_J_PER_K, MMOL_PER_CM3_PER_NM3, NM3_PER_M3
+from gcmc.quality.inversion import gcv_value, invert, second_difference, solve_nnls_tikhonov
+from gcmc.quality.resolution import NoiseModel, resolving_power
 
 T = 298.15
 BETA = 1.0 / (BOLTZMANN_J_PER_K * T) / NM3_PER_M3  # ideal-gas density per Pa of pressure, nm^-3
@@ -62,7 +64,7 @@ def two_site(w: float) -> np.ndarray:
     """A pore as a wall layer plus bulk-like fluid: the fraction phi = 1 - exp(-2 delta / w) of
     the pore volume holds a Langmuir layer (capacity 16 nm^-3, affinity b_s rising in narrow
     pores), the rest a dilute Langmuir term with the ideal-gas Henry law 1/kT, so that wide
-    pores approach bulk gas plus a surface excess. Parameters of gcmc.forms
+    pores approach bulk gas plus a surface excess. Parameters of gcmc.kernel.forms
     "dual_site_langmuir_sips" with s = 1 (two Langmuir terms)."""
     phi = 1.0 - math.exp(-2.0 * 0.35 / w)
     b_s = 2e-6 * (1.0 + (0.8 / w) ** 4)
@@ -388,7 +390,7 @@ def lang_derivatives(w, p):
 
 
 def hand_resolution(w, p, noise, chi2=1.0):
-    """dw_1 and dw_2 by the formulas of gcmc.resolution, written out: projections of the
+    """dw_1 and dw_2 by the formulas of gcmc.quality.resolution, written out: projections of the
     noise-weighted closed-form derivatives."""
     n, d1, d2 = (x * MMOL_PER_CM3_PER_NM3 for x in lang_derivatives(w, p))
     s = np.sqrt((noise.relative * n) ** 2 + noise.absolute_mmol_cm3**2)
@@ -453,11 +455,11 @@ def test_more_pressures_never_resolve_worse() -> None:
 
 def methane_like_kernel() -> Kernel:
     """Methane-like Langmuir kernel: Henry constants by quadrature of the Steele 10-4-3 slit
-    potential for TraPPE methane at 298.15 K (gcmc.henry; an exact limit of the model), a
+    potential for TraPPE methane at 298.15 K (gcmc.physics.henry; an exact limit of the model), a
     capacity of 16 molecules/nm^3 (liquid methane near its boiling point, ~26 mol/L, from
     memory), b = K_H / n_m."""
-    from gcmc.henry import pore_limit
-    from gcmc.model import SLIT, PoreModel, default_solid, get_probe
+    from gcmc.physics.henry import pore_limit
+    from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe
 
     probe, solid = get_probe("methane"), default_solid()
     h = np.round(np.arange(0.66, 2.6 + 1e-9, 0.04), 3)

@@ -1,4 +1,4 @@
-"""The a-priori task cost model (gcmc.cost) that orders a first build's tasks.
+"""The a-priori task cost model (gcmc.pipeline.cost) that orders a first build's tasks.
 
 Only the order of work depends on it, never a result, so these tests check its exact limits
 and the qualitative behaviour it exists for; how well it orders real builds is measured in
@@ -13,12 +13,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from gcmc.build import make_plan
-from gcmc.config import RunConfig, parse_config
-from gcmc.cost import CAPACITY_RHO_SIGMA3, estimate_task_cost, estimated_loading_per_nm3
-from gcmc.eos import make_eos
-from gcmc.henry import pore_limit
-from gcmc.model import SLIT, PoreModel, default_solid, get_probe
+from gcmc.physics.eos import make_eos
+from gcmc.physics.henry import pore_limit
+from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe
+from gcmc.pipeline.config import RunConfig, parse_config
+from gcmc.pipeline.cost import CAPACITY_RHO_SIGMA3, estimate_task_cost, estimated_loading_per_nm3
+from gcmc.pipeline.tasks import make_plan
 
 
 def _methane_config(widths: list[float], sampling: bool = False) -> RunConfig:
@@ -111,7 +111,7 @@ def test_resumed_build_rescales_the_estimate_by_measured_neighbours(tmp_path, mo
     neighbour w1 took its estimate) and w2 (finished neighbours w1, and w3 at m times its
     estimate, so a factor (1 + m)/2): w2 goes first exactly when (1 + m)/2 est(w2) > est(w0),
     i.e. m > 2 est(w0)/est(w2) - 1."""
-    import gcmc.build as B
+    import gcmc.pipeline.tasks as B
 
     cfg = _methane_config([0.7, 0.8, 1.6, 1.8])
     plan = make_plan(cfg)

@@ -24,13 +24,13 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from gcmc import engine as E
-from gcmc.model import BULK, SLIT, PoreModel, Probe, Solid, default_solid, get_probe
-from gcmc.potentials import homogeneous_tail_constant, steele_prefactor_k
-from gcmc.rng import seed_state
-from gcmc.sampler import SamplingSettings, ThermoState, simulate_point
-from gcmc.simulation import Box, EngineOptions
-from gcmc.units import activity_per_nm3
+from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, Solid, default_solid, get_probe
+from gcmc.physics.potentials import homogeneous_tail_constant, steele_prefactor_k
+from gcmc.physics.units import activity_per_nm3
+from gcmc.sampling import engine as E
+from gcmc.sampling.box import Box, EngineOptions
+from gcmc.sampling.point import SamplingSettings, ThermoState, simulate_point
+from gcmc.sampling.rng import seed_state
 
 pytestmark = pytest.mark.usefixtures("engine")
 
@@ -405,7 +405,7 @@ def test_a_replica_that_barely_exchanged_is_flagged() -> None:
     fewer of them than it holds molecules (a frozen packing: the filled 3 sigma pore at 87 K,
     benchmarks/README.md) is flagged few_exchanges and the point is unconverged, even when
     its N series looks perfectly stationary; the same series with ample exchanges is not."""
-    from gcmc.sampler import _analyse, _ReplicaRun
+    from gcmc.sampling.point import _analyse, _ReplicaRun
 
     model, state = _dense_methane_pore()
     box = Box(model, 298.15, state.activity_nm3)
@@ -465,7 +465,7 @@ def test_replicas_run_on_until_they_agree() -> None:
     """The stopping rule of _produce_replicas with scripted replicas: each meets its own
     target from the first check, but their means agree (within 3 combined errors) only from
     the fourth chunk on; production stops there, not before, and not later."""
-    from gcmc.sampler import _produce_replicas
+    from gcmc.sampling.point import _produce_replicas
 
     class Scripted:
         def __init__(self, means: list[float]) -> None:

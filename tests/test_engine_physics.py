@@ -4,10 +4,11 @@ Each check names its reference beside it:
 
 - bulk LJ densities at given fugacity: the full-potential LJ equation of state of Thol, Rutkai,
   Koster, Lustig, Span & Vrabec, J. Phys. Chem. Ref. Data 45 (2016) 023101 (through teqp, via
-  gcmc.eos "lennard-jones"), cross-checked against Kolafa & Nezbeda, Fluid Phase Equilib. 100
+  gcmc.physics.eos "lennard-jones"), cross-checked against Kolafa & Nezbeda, Fluid Phase Equilib.
+  100
   (1994) 1 (teqp);
 - low-pressure slope of slit-pore isotherms: the exact Henry constant, a quadrature of the wall
-  Boltzmann factor (gcmc.henry.pore_limit; e.g. Steele, The Interaction of Gases with Solid
+  Boltzmann factor (gcmc.physics.henry.pore_limit; e.g. Steele, The Interaction of Gases with Solid
   Surfaces, 1974), with the fluid-fluid second-order term bounded by an exact cluster integral;
   and the isosteric heat from fluctuations against its exact Henry limit kT - <V>_w;
 - the ideal-gas limit <N> = beta f V and its Poisson distribution (exact);
@@ -21,7 +22,7 @@ Each check names its reference beside it:
 
 All runs have fixed seeds, so every test is deterministic. Statistical tolerances are k
 standard errors from the run's own block-averaged error (Flyvbjerg & Petersen 1989, via
-gcmc.statistics), stated beside each check. The default runs are short (seconds each); the
+gcmc.sampling.statistics), stated beside each check. The default runs are short (seconds each); the
 ``slow`` ones are longer and tighter (pytest --run-slow, or -m slow).
 """
 
@@ -35,14 +36,14 @@ import pytest
 from scipy import integrate, optimize
 from scipy.stats import t as student_t
 
-from gcmc.eos import make_eos
-from gcmc.henry import pore_limit
-from gcmc.model import BULK, SLIT, PoreModel, Probe, Solid, default_solid, get_probe
-from gcmc.potentials import overlap_distance_nm, wall_potential_k
-from gcmc.rng import seed_state
-from gcmc.sampler import SamplingSettings, ThermoState, simulate_point
-from gcmc.simulation import Box
-from gcmc.units import BOLTZMANN_J_PER_K, NM3_PER_M3, activity_per_nm3, kelvin_to_kj_per_mol
+from gcmc.physics.eos import make_eos
+from gcmc.physics.henry import pore_limit
+from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, Solid, default_solid, get_probe
+from gcmc.physics.potentials import overlap_distance_nm, wall_potential_k
+from gcmc.physics.units import BOLTZMANN_J_PER_K, NM3_PER_M3, activity_per_nm3, kelvin_to_kj_per_mol
+from gcmc.sampling.box import Box
+from gcmc.sampling.point import SamplingSettings, ThermoState, simulate_point
+from gcmc.sampling.rng import seed_state
 
 pytestmark = pytest.mark.usefixtures("engine")
 
@@ -402,7 +403,7 @@ def check_henry(h: HenryRun, max_3se: float) -> None:
     assert abs(h.ratio_pred - 1.0) <= HENRY_MAX_SECOND_ORDER + 1e-12
     assert abs(h.q_pred / h.q_henry - 1.0) <= HENRY_MAX_SECOND_ORDER + 1e-12
     assert 3 * h.ratio_err < max_3se, h.ratio_err  # enough sampling: 3 stderr below the bound
-    # Exact Henry constant (quadrature, gcmc.henry.pore_limit): within 2 % ...
+    # Exact Henry constant (quadrature, gcmc.physics.henry.pore_limit): within 2 % ...
     assert abs(h.ratio - 1.0) <= 0.02, h
     # ... and, sharper, within 3 standard errors of the Henry law with its exact second-order
     # fluid-fluid term.
@@ -725,7 +726,7 @@ def test_default_cutoff_matches_longer_cutoff_subcritical_argon_filled_pore() ->
     The loading of this confined liquid has a slow mode (block errors show no plateau within
     1.6e7 moves, measured; at 87.3 K it is slower still), so the error comes from the spread of
     independent replicas (own seeds, each from the same filled configuration) instead."""
-    from gcmc.eos import make_eos as eos_for
+    from gcmc.physics.eos import make_eos as eos_for
 
     eos = eos_for("reference", get_probe("argon"))
     t = 110.0

@@ -1,4 +1,4 @@
-"""Equations of state of the bulk reservoir (gcmc.eos).
+"""Equations of state of the bulk reservoir (gcmc.physics.eos).
 
 Every check against something outside the project names its source beside it. Tolerances
 are justified where they are set; measured values quoted in comments were measured with
@@ -16,16 +16,16 @@ import CoolProp.CoolProp as CP
 import numpy as np
 import pytest
 
-from gcmc.eos import (
+from gcmc.errors import InputError
+from gcmc.physics.eos import (
     EOS_NAMES,
     BulkState,
     LennardJonesEOS,
     PengRobinson,
     make_eos,
 )
-from gcmc.errors import InputError
-from gcmc.model import Probe, load_probe_library
-from gcmc.units import BOLTZMANN_J_PER_K, NM3_PER_M3, activity_per_nm3
+from gcmc.physics.model import Probe, load_probe_library
+from gcmc.physics.units import BOLTZMANN_J_PER_K, NM3_PER_M3, activity_per_nm3
 
 
 @pytest.fixture(scope="module")

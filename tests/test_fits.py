@@ -1,4 +1,4 @@
-"""Tests of the correlating forms (gcmc.forms) and the isotherm fitter (gcmc.fits).
+"""Tests of the correlating forms (gcmc.kernel.forms) and the isotherm fitter (gcmc.pipeline.fits).
 
 All isotherm data here are invented synthetic data drawn from the forms themselves with
 seeded Gaussian noise; the statistical tolerances are derived beside each check.
@@ -11,8 +11,9 @@ import pytest
 from scipy.interpolate import PchipInterpolator
 from scipy.special import lambertw
 
-from gcmc import fits, forms
 from gcmc.errors import InputError
+from gcmc.kernel import forms
+from gcmc.pipeline import fits
 
 # Invented "true" parameters for each form on a pressure grid 1e2..1e7 Pa (30 points, log
 # spaced). Amounts in molecules/nm^3, affinities in 1/Pa.

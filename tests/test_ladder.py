@@ -1,4 +1,4 @@
-"""Replica exchange along a pressure ladder (gcmc.ladder)."""
+"""Replica exchange along a pressure ladder (gcmc.sampling.ladder)."""
 
 from __future__ import annotations
 
@@ -7,10 +7,10 @@ import math
 import numpy as np
 import pytest
 
-from gcmc import ladder as L
-from gcmc.model import BULK, SLIT, PoreModel, Probe, Solid
-from gcmc.sampler import SamplingSettings, ThermoState
-from gcmc.units import fugacity_pa_from_activity
+from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, Solid
+from gcmc.physics.units import fugacity_pa_from_activity
+from gcmc.sampling import ladder as L
+from gcmc.sampling.point import SamplingSettings, ThermoState
 
 T = 300.0
 # Near-ideal gas: eps/k = 1e-6 K. The overlap core (beta u > 200) then has radius

@@ -1,4 +1,4 @@
-"""Kernel library: writer (gcmc.library), reader (gcmc.reader) and `gcmc show/export`.
+"""Kernel library: writer (gcmc.kernel.writer), reader (gcmc.reader) and `gcmc show/export`.
 
 The kernels here are invented demo data for format tests: Langmuir isotherms whose constants
 vary smoothly with the pore width, "measured" with a stated 1 % relative standard error and
@@ -21,11 +21,12 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from gcmc import cli, forms
+from gcmc import cli
 from gcmc.errors import InputError
-from gcmc.kernel_data import POINT_FIELDS, FitRecord, KernelData
-from gcmc.library import config_hash, list_versions, next_version, write_kernel
-from gcmc.reader import compute_checksums, open_kernel
+from gcmc.kernel import forms
+from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.reader import compute_checksums, open_kernel
+from gcmc.kernel.writer import config_hash, list_versions, next_version, write_kernel
 
 K_B = 1.380649e-23  # J/K, CODATA 2018 exact
 SIGMA_SS = 0.34  # nm, the internal-width convention w = H - sigma_ss
@@ -346,7 +347,7 @@ def test_invalid_data_and_failed_write_leave_nothing(
     bad = dataclasses.replace(demo, above_range="extrapolate")
     with pytest.raises(InputError, match="above_range"):
         write_kernel(bad, tmp_path)
-    import gcmc.library as library
+    import gcmc.kernel.writer as library
 
     def explode(f: h5py.File, data: KernelData) -> None:
         f.create_dataset("half", data=np.zeros(10))

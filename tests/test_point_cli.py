@@ -15,8 +15,8 @@ from pathlib import Path
 import pytest
 
 from gcmc.cli import main
-from gcmc.model import default_solid, get_probe
-from gcmc.units import BOLTZMANN_J_PER_K, NM3_PER_M3
+from gcmc.physics.model import default_solid, get_probe
+from gcmc.physics.units import BOLTZMANN_J_PER_K, NM3_PER_M3
 
 pytestmark = pytest.mark.usefixtures("engine")
 

@@ -1,4 +1,4 @@
-"""The probe library (configs/probes.toml) and inline probe tables."""
+"""The probe library (gcmc/physics/data/probes.toml) and inline probe tables."""
 
 from __future__ import annotations
 
@@ -7,9 +7,9 @@ import math
 import CoolProp.CoolProp as CP
 import pytest
 
-from gcmc.eos import make_eos
 from gcmc.errors import InputError
-from gcmc.model import Probe, get_probe, load_probe_library, probe_from_table
+from gcmc.physics.eos import make_eos
+from gcmc.physics.model import Probe, get_probe, load_probe_library, probe_from_table
 
 LIBRARY = load_probe_library()
 

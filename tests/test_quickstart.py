@@ -51,7 +51,7 @@ def quickstart_kernel(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 
 def test_quickstart_kernel_reads_and_evaluates(quickstart_kernel: Path) -> None:
-    from gcmc.reader import open_kernel
+    from gcmc.kernel.reader import open_kernel
 
     k = open_kernel(quickstart_kernel)
     d = k.data
@@ -68,7 +68,7 @@ def test_fits_near_unit_reduced_chi2(quickstart_kernel: Path) -> None:
     """At default settings the chosen forms describe the simulated isotherms to within their
     errors: the reduced chi-square scatters around 1 (for 10 points and 2-4 parameters its
     standard deviation is about sqrt(2/dof) ~ 0.5; we allow a median within [0.3, 3])."""
-    from gcmc.reader import open_kernel
+    from gcmc.kernel.reader import open_kernel
 
     d = open_kernel(quickstart_kernel).data
     chi = [f.reduced_chi2 for row in d.fits for f in row if f.form != "zero"]
@@ -84,7 +84,7 @@ def test_henry_extension_agrees_with_low_pressure_points(quickstart_kernel: Path
     simulated pressures the simulated density must agree with K_H f within 3 standard errors
     plus the first-order non-ideality of the adsorbed phase, which we bound from the
     simulation itself: the change of n/f between the two lowest points."""
-    from gcmc.reader import open_kernel
+    from gcmc.kernel.reader import open_kernel
 
     k = open_kernel(quickstart_kernel)
     d = k.data

@@ -9,8 +9,8 @@ import sys
 
 PROBE = """
 import json, time
-from gcmc.simulation import warm_up
-import gcmc.engine as E
+from gcmc.sampling.box import warm_up
+import gcmc.sampling.engine as E
 t = warm_up()
 s = E.run_moves.stats
 print(json.dumps({"seconds": t, "hits": sum(s.cache_hits.values()),
@@ -21,9 +21,9 @@ print(json.dumps({"seconds": t, "hits": sum(s.cache_hits.values()),
 TRAJECTORY = """
 import json
 import numpy as np
-import gcmc.engine as E
-from gcmc.model import BULK, SLIT, PoreModel, Probe, Solid
-from gcmc.simulation import Box
+import gcmc.sampling.engine as E
+from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, Solid
+from gcmc.sampling.box import Box
 probe = Probe(name="m", epsilon_k=148.0, sigma_nm=0.373)
 out = {}
 for geom, k in ((SLIT, 1), (SLIT, 16), (BULK, 1)):

@@ -1,4 +1,4 @@
-"""Tests of gcmc.statistics on synthetic processes with exactly known statistics.
+"""Tests of gcmc.sampling.statistics on synthetic processes with exactly known statistics.
 
 Most references are exact results for the stationary AR(1) process x_t = phi x_{t-1} + e_t,
 with e_t ~ N(0, s^2) (e.g. Box & Jenkins, "Time Series Analysis"; the identities follow from
@@ -24,7 +24,7 @@ from scipy.signal import lfilter
 from scipy.stats import chi2
 
 from gcmc.errors import InputError
-from gcmc.statistics import (
+from gcmc.sampling.statistics import (
     _chi2_quantile_99,
     agreement,
     block_average,

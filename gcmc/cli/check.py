@@ -1,0 +1,261 @@
+"""`gcmc check KERNEL` (quality checks before a kernel is used in fits) and `gcmc diff A B`
+(what changed between two kernels of the same probe). The checks are in
+:mod:`gcmc.quality.criteria`."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+from pathlib import Path
+
+from gcmc.errors import InputError
+
+CHECK_HELP = """Check a kernel before it is used to invert isotherms. Per temperature and pore
+width: relative standard errors against a target, build flags, loading non-decreasing with
+pressure, fit chi-square and residual runs, hysteresis, the lowest points against the exact
+Henry constant, the smallest accessible width, the widest pore against bulk fluid plus a
+surface excess. Across widths: outliers against neighbouring widths, and intervals where
+interpolation in width errs by more than the errors allow (to refine). Then the resolving
+power for an experiment's noise and pressures (the smallest distinguishable width step, the
+singular values of the noise-weighted kernel matrix, the width above which pores are no longer
+resolved) and a round trip: synthetic pore-size distributions -> isotherms with noise ->
+a reference regularised inversion -> recovered volumes and modes. Each criterion gets pass,
+warn or fail with its thresholds. Exit code 1 if any criterion fails, 0 otherwise, 2 on bad
+input."""
+
+DIFF_HELP = """Compare two kernels of the same probe: what changed in the model, the equation of
+state and the grids, and, per width, the largest deviation between them in units of the
+combined standard errors (on A's widths and pressures; where the grids differ, B is evaluated
+there through its fits and its errors are interpolated). Exit code 1 if some width deviates by
+more than --max-sigma, 0 if they agree, 2 on bad input (including kernels of different
+probes)."""
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    c = sub.add_parser(
+        "check",
+        help="quality checks of a kernel",
+        description=CHECK_HELP,
+        formatter_class=argparse.ArgumentDefaultsHelpFormatter,
+    )
+    c.add_argument("kernel", metavar="KERNEL", help="a kernel file (<name>.v<version>.h5)")
+    c.add_argument(
+        "--target-rel-error",
+        type=float,
+        default=0.02,
+        metavar="R",
+        help="target relative standard error of a point",
+    )
+    n = c.add_argument_group("experiment (resolving power and round trip)")
+    n.add_argument(
+        "--noise-rel",
+        type=float,
+        default=0.01,
+        metavar="R",
+        help="relative noise of a measured amount",
+    )
+    n.add_argument(
+        "--noise-abs-mmol-cm3",
+        type=float,
+        default=0.01,
+        metavar="A",
+        help="absolute noise of a measured amount, mmol per cm3 of pore volume",
+    )
+    src = n.add_mutually_exclusive_group()
+    src.add_argument(
+        "--pressures-Pa",
+        metavar="FILE",
+        help="the experiment's pressures in Pa, a text file (numbers separated by "
+        "spaces, commas or new lines; '#' starts a comment); default: the "
+        "kernel's own",
+    )
+    src.add_argument(
+        "--p-range",
+        type=float,
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        help="log-spaced pressures from LOW to HIGH Pa (--p-points of them)",
+    )
+    n.add_argument("--p-points", type=int, default=30, help="number of pressures for --p-range")
+    n.add_argument(
+        "--temperature",
+        type=float,
+        metavar="K",
+        help="check this kernel temperature only (default: every temperature)",
+    )
+    r = c.add_argument_group("resolving power")
+    r.add_argument(
+        "--chi2-threshold",
+        type=float,
+        default=1.0,
+        help="Delta-chi2 at which two isotherms count as distinguishable",
+    )
+    r.add_argument(
+        "--resolution-fraction",
+        type=float,
+        default=0.25,
+        metavar="RHO",
+        help="a width w is resolved when two pores at w(1 -+ RHO) can be told from one",
+    )
+    t = c.add_argument_group("round trip")
+    t.add_argument(
+        "--inversion",
+        choices=("gcv", "l-curve"),
+        default="gcv",
+        help="how the reference inversion chooses its regularisation",
+    )
+    t.add_argument("--realisations", type=int, default=12, help="noise realisations per PSD")
+    t.add_argument(
+        "--pore-volume",
+        type=float,
+        default=0.5,
+        metavar="CM3_G",
+        help="total pore volume of the synthetic samples, cm3/g",
+    )
+    t.add_argument("--seed", type=int, default=2026, help="seed of the synthetic noise")
+    o = c.add_argument_group("output")
+    o.add_argument(
+        "--report", metavar="DIR", help="write plots (PNG and PDF) and check.json into DIR"
+    )
+    o.add_argument("--json", action="store_true", help="print one JSON object")
+    c.set_defaults(func=run_check)
+
+    d = sub.add_parser(
+        "diff",
+        help="compare two kernels of the same probe",
+        description=DIFF_HELP,
+        formatter_class=argparse.ArgumentDefaultsHelpFormatter,
+    )
+    d.add_argument("a", metavar="A", help="a kernel file")
+    d.add_argument("b", metavar="B", help="another kernel file of the same probe")
+    d.add_argument(
+        "--max-sigma",
+        type=float,
+        default=3.0,
+        help="largest deviation (combined sigma) for the kernels to agree",
+    )
+    d.add_argument("--json", action="store_true", help="print one JSON object")
+    d.set_defaults(func=run_diff)
+
+
+def _positive(name: str, value: float | None, allow_zero: bool = False) -> None:
+    if value is None:
+        return
+    if not math.isfinite(value) or value < 0 or (value == 0 and not allow_zero):
+        raise InputError(
+            f"--{name}: must be a finite number {'>=' if allow_zero else '>'} 0, got {value}"
+        )
+
+
+def read_pressure_file(path: str) -> list[float]:
+    """Pressures (Pa) from a text file: numbers separated by white space or commas, '#'
+    comments. InputError naming the file for anything else."""
+    p = Path(path)
+    try:
+        text = p.read_text()
+    except OSError as exc:
+        raise InputError(f"--pressures-Pa {path}: cannot read ({exc.strerror or exc})") from None
+    values = []
+    for lineno, line in enumerate(text.splitlines(), 1):
+        line = line.split("#", 1)[0]
+        for tok in line.replace(",", " ").split():
+            try:
+                v = float(tok)
+            except ValueError:
+                raise InputError(
+                    f"--pressures-Pa {path}: line {lineno}: {tok!r} is not a number"
+                ) from None
+            if not math.isfinite(v) or v <= 0:
+                raise InputError(
+                    f"--pressures-Pa {path}: line {lineno}: pressure {tok} must "
+                    "be finite and > 0 Pa"
+                )
+            values.append(v)
+    if len(values) < 2:
+        raise InputError(f"--pressures-Pa {path}: need at least 2 pressures, found {len(values)}")
+    return values
+
+
+def run_check(args: argparse.Namespace) -> int:
+    import numpy as np
+
+    from gcmc.kernel.reader import open_kernel
+    from gcmc.quality.criteria import CheckSettings, format_table, run_checks
+    from gcmc.quality.resolution import NoiseModel
+
+    _positive("target-rel-error", args.target_rel_error)
+    _positive("noise-rel", args.noise_rel, allow_zero=True)
+    _positive("noise-abs-mmol-cm3", args.noise_abs_mmol_cm3, allow_zero=True)
+    _positive("chi2-threshold", args.chi2_threshold)
+    _positive("resolution-fraction", args.resolution_fraction)
+    _positive("pore-volume", args.pore_volume)
+    _positive("temperature", args.temperature)
+    if args.realisations < 2:
+        raise InputError(f"--realisations: need at least 2, got {args.realisations}")
+    if args.noise_rel == 0 and args.noise_abs_mmol_cm3 == 0:
+        raise InputError("--noise-rel/--noise-abs-mmol-cm3: cannot both be 0")
+    pressures = None
+    if args.pressures_Pa is not None:
+        pressures = np.array(read_pressure_file(args.pressures_Pa))
+    elif args.p_range is not None:
+        lo, hi = args.p_range
+        for v in (lo, hi):
+            _positive("p-range", v)
+        if not lo < hi:
+            raise InputError(f"--p-range: LOW must be below HIGH, got {lo:g} {hi:g}")
+        if args.p_points < 2:
+            raise InputError(f"--p-points: need at least 2, got {args.p_points}")
+        pressures = np.geomspace(lo, hi, args.p_points)
+    if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
+        raise InputError(f"--report {args.report}: exists and is not a folder")
+    kernel = open_kernel(args.kernel)
+    temps = None if args.temperature is None else (float(args.temperature),)
+    if temps is not None:
+        kernel.temperature_index(temps[0])  # InputError naming the kernel's temperatures
+    settings = CheckSettings(
+        target_rel_error=args.target_rel_error,
+        noise=NoiseModel(args.noise_rel, args.noise_abs_mmol_cm3),
+        pressures_Pa=pressures,
+        temperatures_K=temps,
+        chi2_threshold=args.chi2_threshold,
+        resolution_fraction=args.resolution_fraction,
+        realisations=args.realisations,
+        seed=args.seed,
+        pore_volume_cm3_g=args.pore_volume,
+        inversion_method=args.inversion,
+    )
+    report = run_checks(kernel, settings)
+    written = []
+    if args.report is not None:
+        from gcmc.quality.report import write_report
+
+        written = write_report(report, kernel, args.report)
+    if args.json:
+        out = report.to_dict()
+        if written:
+            out["report_files"] = [str(p) for p in written]
+        json.dump(out, sys.stdout, indent=1)
+        sys.stdout.write("\n")
+    else:
+        print(format_table(report))
+        if written:
+            print(f"report: {len(written)} file(s) in {args.report}")
+    return report.exit_code
+
+
+def run_diff(args: argparse.Namespace) -> int:
+    from gcmc.kernel.reader import open_kernel
+    from gcmc.quality.criteria import diff_kernels, format_diff
+
+    _positive("max-sigma", args.max_sigma)
+    a = open_kernel(args.a)
+    b = open_kernel(args.b)
+    rep = diff_kernels(a, b, max_sigma=args.max_sigma)
+    if args.json:
+        json.dump(rep.to_dict(), sys.stdout, indent=1)
+        sys.stdout.write("\n")
+    else:
+        print(format_diff(rep))
+    return 1 if rep.largest() > rep.max_sigma else 0

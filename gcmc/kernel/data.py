@@ -1,0 +1,100 @@
+"""The in-memory kernel: what a build hands to the library writer (gcmc.kernel.writer) and what
+the reader (gcmc.reader) gives back. numpy only.
+
+Shapes: T = temperatures, W = widths, P = pressures per temperature, D = dense pressures.
+Arrays of simulated quantities have shape (T, W, P) per branch ("adsorption" always,
+"desorption" when the build ran the descending ladder too; NaN where not run).
+
+A future sampler that yields a whole isotherm per width (flat-histogram / transition-matrix
+Monte Carlo) fills the same arrays from its continuous isotherm, sets ``sampler`` to its name,
+and may add its own per-task datasets under ``extra``; the reader does not depend on how the
+points were produced.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+#: Quantities stored per simulated point, with their units. Keys are dataset names.
+POINT_FIELDS: dict[str, str] = {
+    "density_per_nm3": "nm^-3",  # absolute density per pore volume A*w
+    "density_per_nm3_stderr": "nm^-3",
+    "excess_density_per_nm3": "nm^-3",
+    "molecules_mean": "1",
+    "molecules_stderr": "1",
+    "isosteric_heat_kJ_per_mol": "kJ/mol",
+    "isosteric_heat_kJ_per_mol_stderr": "kJ/mol",
+    "fluid_fluid_energy_kJ_per_mol": "kJ/mol",
+    "fluid_solid_energy_kJ_per_mol": "kJ/mol",
+    "statistical_inefficiency": "samples",
+    "drift_z": "1",
+    "replica_agreement_z": "1",
+    "insertion_acceptance": "1",
+    "insertion_trials": "1",
+    "moves": "1",
+    "seconds": "s",
+    "converged": "bool",
+}
+
+
+@dataclass
+class FitRecord:
+    """A fitted correlating form for one isotherm (one temperature and width)."""
+
+    form: str  # a name of gcmc.kernel.forms.FORMS, "monotone_interpolant" or "zero"
+    parameters: np.ndarray
+    covariance: np.ndarray
+    chi2: float
+    dof: int
+    reduced_chi2: float
+    p_value: float
+    aicc: float
+    residuals: np.ndarray  # (simulated - fitted) / stderr at each pressure
+    accepted: bool
+
+
+@dataclass
+class KernelData:
+    name: str
+    version: int
+    # model and conventions
+    probe: dict[str, Any]
+    solid: dict[str, Any]
+    cutoff_nm: float
+    box_nm: float
+    tail_correction: str
+    eos: str
+    eos_parameters: dict[str, Any]
+    width_convention: str  # "internal: w = H - sigma_ss"
+    pore_volume_convention: str  # "A * w"
+    sampler: str  # "gcmc-ladder" (point-wise GCMC) for now
+    # axes
+    temperatures_K: np.ndarray  # (T,)
+    widths_H_nm: np.ndarray  # (W,)
+    widths_w_nm: np.ndarray  # (W,)
+    pressures_Pa: np.ndarray  # (T, P)
+    relative_pressures: np.ndarray  # (T, P) p/p0, NaN when the grid is absolute
+    saturation_pressures_Pa: np.ndarray  # (T,) p0 from the EOS, NaN above Tc
+    fugacities_Pa: np.ndarray  # (T, P)
+    bulk_density_per_nm3: np.ndarray  # (T, P)
+    # simulated points: branch -> field -> (T, W, P)
+    points: dict[str, dict[str, np.ndarray]]
+    flags: dict[str, np.ndarray]  # branch -> (T, W, P) strings ("" when clean)
+    # exact limits
+    henry_per_nm3_per_pa: np.ndarray  # (T, W)
+    accessible: np.ndarray  # (T, W) bool
+    # fits, adsorption branch: fits[t][w]
+    fits: list[list[FitRecord]]
+    above_range: str  # "clamp" or "refuse"
+    # dense table evaluated from the fits
+    dense_pressures_Pa: np.ndarray  # (T, D)
+    dense_density_per_nm3: np.ndarray  # (T, W, D)
+    # provenance
+    config_text: str
+    provenance: dict[str, Any]  # code/library versions, host, created, seeds...
+    task_seeds: np.ndarray  # (T, W) uint64 entropy words per task
+    task_seconds: np.ndarray  # (T, W)
+    extra: dict[str, np.ndarray] = field(default_factory=dict)

@@ -1,0 +1,431 @@
+"""Run configs (TOML): parse and validate every field before any simulation starts.
+
+Each problem is an InputError naming the file and the field. The layout is documented in
+configs/README.md and by the example configs in configs/.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import tomllib
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from gcmc.errors import InputError
+from gcmc.kernel.forms import DEFAULT_FORMS as FIT_DEFAULT_FORMS
+from gcmc.physics.model import (
+    Probe,
+    Solid,
+    default_solid,
+    get_probe,
+    probe_from_table,
+    solid_from_table,
+)
+from gcmc.physics.potentials import default_box_nm, default_cutoff_nm
+from gcmc.sampling.point import SamplingSettings
+
+KNOWN_SECTIONS = {
+    "kernel",
+    "probe",
+    "solid",
+    "model",
+    "widths",
+    "temperatures",
+    "pressures",
+    "eos",
+    "sampling",
+    "fit",
+    "seed",
+}
+
+
+@dataclass(frozen=True)
+class PressureGrid:
+    kind: str  # "absolute" (values in Pa) or "relative" (values are p/p0)
+    values: tuple[float, ...]
+    descending: bool  # also run the desorption branch
+
+
+@dataclass(frozen=True)
+class FitOptions:
+    forms: tuple[str, ...] = FIT_DEFAULT_FORMS
+    p_value_min: float = 1e-3
+    above_range: str = "clamp"
+    dense_points: int = 200
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    path: Path
+    text: str
+    name: str
+    output: Path
+    probe: Probe
+    solid: Solid
+    cutoff_nm: float
+    box_nm: float
+    widths_H_nm: tuple[float, ...]
+    temperatures_K: tuple[float, ...]
+    pressures: PressureGrid
+    eos: str
+    sampling: SamplingSettings
+    fit: FitOptions
+    seed: int
+
+    @property
+    def config_hash(self) -> str:
+        """Hash of everything that changes the kernel's data (not the output folder)."""
+        canon = {
+            "probe": self.probe.to_dict() | {"sources": None},
+            "solid": self.solid.to_dict(),
+            "cutoff_nm": self.cutoff_nm,
+            "box_nm": self.box_nm,
+            "widths_H_nm": self.widths_H_nm,
+            "temperatures_K": self.temperatures_K,
+            "pressures": [self.pressures.kind, self.pressures.values, self.pressures.descending],
+            "eos": self.eos,
+            "sampling": self.sampling.__dict__,
+            "fit": self.fit.__dict__,
+            "seed": self.seed,
+            "name": self.name,
+        }
+        blob = json.dumps(canon, sort_keys=True, default=str).encode()
+        return hashlib.sha256(blob).hexdigest()
+
+
+class _Fields:
+    """Typed access to a TOML table, with errors that name file and field."""
+
+    def __init__(self, where: str, table: Any):
+        if not isinstance(table, dict):
+            raise InputError(f"{where}: expected a table")
+        self.where = where
+        self.table = table
+        self.used: set[str] = set()
+
+    def _get(self, key: str, required: bool) -> Any:
+        if key not in self.table:
+            if required:
+                raise InputError(f"{self.where}.{key}: missing")
+            return None
+        self.used.add(key)
+        return self.table[key]
+
+    def number(
+        self, key: str, default: float | None = None, required: bool = False, positive: bool = True
+    ) -> float | None:
+        v = self._get(key, required and default is None)
+        if v is None:
+            return default
+        if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+            raise InputError(f"{self.where}.{key}: expected a finite number, got {v!r}")
+        if positive and v <= 0:
+            raise InputError(f"{self.where}.{key}: must be > 0, got {v!r}")
+        return float(v)
+
+    def integer(self, key: str, default: int | None = None, minimum: int = 0) -> int | None:
+        v = self._get(key, default is None)
+        if v is None:
+            return default
+        if isinstance(v, bool) or not isinstance(v, int):
+            raise InputError(f"{self.where}.{key}: expected an integer, got {v!r}")
+        if v < minimum:
+            raise InputError(f"{self.where}.{key}: must be >= {minimum}, got {v}")
+        return int(v)
+
+    def string(self, key: str, default: str | None = None, choices: tuple[str, ...] = ()) -> str:
+        v = self._get(key, default is None)
+        if v is None:
+            return default  # type: ignore[return-value]
+        if not isinstance(v, str):
+            raise InputError(f"{self.where}.{key}: expected a string, got {v!r}")
+        if choices and v not in choices:
+            raise InputError(f"{self.where}.{key}: {v!r} is not one of {', '.join(choices)}")
+        return v
+
+    def boolean(self, key: str, default: bool) -> bool:
+        v = self._get(key, False)
+        if v is None:
+            return default
+        if not isinstance(v, bool):
+            raise InputError(f"{self.where}.{key}: expected true or false, got {v!r}")
+        return v
+
+    def numbers(
+        self, key: str, required: bool = False, positive: bool = True
+    ) -> list[float] | None:
+        v = self._get(key, required)
+        if v is None:
+            return None
+        if not isinstance(v, list) or not v:
+            raise InputError(f"{self.where}.{key}: expected a non-empty list of numbers")
+        out = []
+        for i, x in enumerate(v):
+            if isinstance(x, bool) or not isinstance(x, int | float) or not math.isfinite(x):
+                raise InputError(f"{self.where}.{key}[{i}]: expected a finite number, got {x!r}")
+            if positive and x <= 0:
+                raise InputError(f"{self.where}.{key}[{i}]: must be > 0, got {x!r}")
+            out.append(float(x))
+        return out
+
+    def done(self) -> None:
+        extra = set(self.table) - self.used
+        if extra:
+            raise InputError(f"{self.where}.{sorted(extra)[0]}: unknown field")
+
+
+def _increasing(where: str, values: list[float]) -> None:
+    for i in range(1, len(values)):
+        if values[i] == values[i - 1]:
+            raise InputError(f"{where}: duplicate value {values[i]:g}")
+        if values[i] < values[i - 1]:
+            raise InputError(
+                f"{where}: values must be sorted increasing "
+                f"({values[i - 1]:g} before {values[i]:g})"
+            )
+
+
+def _spaced(where: str, f: _Fields, lo_key: str, hi_key: str) -> list[float]:
+    lo = f.number(lo_key, required=True)
+    hi = f.number(hi_key, required=True)
+    assert lo is not None and hi is not None
+    if hi <= lo:
+        raise InputError(f"{where}.{hi_key}: must be greater than {lo_key} ({hi:g} <= {lo:g})")
+    count = f.integer("count", minimum=2)
+    scale = f.string("scale", "log", ("log", "linear"))
+    if scale == "log":
+        return list(np.geomspace(lo, hi, count))
+    return list(np.linspace(lo, hi, count))
+
+
+def _widths(where: str, table: Any, sigma_ss: float) -> list[float]:
+    f = _Fields(where, table)
+    out: list[float] = []
+    h = f.numbers("H_nm")
+    w = f.numbers("w_nm")
+    ranges = f._get("ranges", False)
+    if sum(x is not None for x in (h, w, ranges)) != 1:
+        raise InputError(f"{where}: give exactly one of H_nm, w_nm or ranges")
+    if h is not None:
+        out = h
+    elif w is not None:
+        out = [round(x + sigma_ss, 10) for x in w]
+    else:
+        if not isinstance(ranges, list) or not ranges:
+            raise InputError(
+                f"{where}.ranges: expected a list of tables {{from_nm, to_nm, step_nm}}"
+            )
+        for i, r in enumerate(ranges):
+            rf = _Fields(f"{where}.ranges[{i}]", r)
+            lo = rf.number("from_nm", required=True)
+            hi = rf.number("to_nm", required=True)
+            step = rf.number("step_nm", required=True)
+            axis = rf.string("axis", "H", ("H", "w"))
+            rf.done()
+            assert lo is not None and hi is not None and step is not None
+            if hi < lo:
+                raise InputError(f"{where}.ranges[{i}].to_nm: must be >= from_nm")
+            n = int(math.floor((hi - lo) / step + 1e-9))
+            vals = [round(lo + k * step, 10) for k in range(n + 1)]
+            if axis == "w":
+                vals = [round(v + sigma_ss, 10) for v in vals]
+            if out and abs(vals[0] - out[-1]) < 1e-9:
+                vals = vals[1:]  # ranges that share an end point
+            out.extend(vals)
+    f.done()
+    _increasing(f"{where}", out)
+    for x in out:
+        if x <= sigma_ss:
+            raise InputError(
+                f"{where}: width H = {x:g} nm is not wider than sigma_ss "
+                f"({sigma_ss:g} nm): no pore volume"
+            )
+    return out
+
+
+def load_config(path: str | Path) -> RunConfig:
+    """Read and validate a run config; raise InputError naming the first bad field."""
+    path = Path(path)
+    try:
+        text = path.read_text()
+    except FileNotFoundError:
+        raise InputError(f"{path}: file not found") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read ({exc.strerror})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{path}: not valid TOML ({exc})") from None
+    return parse_config(data, text, path)
+
+
+def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
+    p = path.name
+    for key in data:
+        if key not in KNOWN_SECTIONS:
+            raise InputError(f"{p}: {key}: unknown section")
+    kf = _Fields(f"{p}: kernel", data.get("kernel", {}))
+    name = kf.string("name")
+    if not name or any(c in name for c in "/\\ ") or name.startswith("."):
+        raise InputError(f"{p}: kernel.name: must be a plain file name without spaces or slashes")
+    output = kf.string("output", "kernels")
+    kf.done()
+    out_dir = (path.parent / output).resolve() if not Path(output).is_absolute() else Path(output)
+
+    # probe: a library name, or an inline table
+    if "probe" not in data:
+        raise InputError(f"{p}: probe: missing (a library name or a table)")
+    pt = data["probe"]
+    if isinstance(pt, str):
+        probe = get_probe(pt)
+    elif isinstance(pt, dict) and "library_name" in pt:
+        lib = pt.get("library")
+        lib_path = (path.parent / lib) if isinstance(lib, str) else None
+        extra = set(pt) - {"library_name", "library"}
+        if extra:
+            raise InputError(f"{p}: probe.{sorted(extra)[0]}: unknown field next to library_name")
+        probe = get_probe(str(pt["library_name"]), lib_path)
+    else:
+        probe = probe_from_table(
+            str(pt.get("name", "inline")) if isinstance(pt, dict) else "", pt, where=f"{p}: probe"
+        )
+
+    solid = solid_from_table(
+        "graphite", data.get("solid", {}), where=f"{p}: solid", base=default_solid()
+    )
+
+    mf = _Fields(f"{p}: model", data.get("model", {}))
+    cutoff = mf.number("cutoff_nm", default_cutoff_nm(probe))
+    assert cutoff is not None
+    box = mf.number("box_nm", default_box_nm(cutoff, probe.sigma_nm))
+    assert box is not None
+    mf.done()
+    if cutoff > 0.5 * box:
+        raise InputError(
+            f"{p}: model.cutoff_nm: {cutoff:g} nm is larger than half the lateral box ({box:g} nm)"
+        )
+
+    if "widths" not in data:
+        raise InputError(f"{p}: widths: missing")
+    widths = _widths(f"{p}: widths", data["widths"], solid.sigma_nm)
+
+    tf = _Fields(f"{p}: temperatures", data.get("temperatures", {}))
+    temps = tf.numbers("K", required=True)
+    tf.done()
+    assert temps is not None
+    _increasing(f"{p}: temperatures.K", temps)
+
+    ef = _Fields(f"{p}: eos", data.get("eos", {}))
+    from gcmc.physics.eos import EOS_NAMES
+
+    eos = ef.string("name", "reference" if probe.reference_eos else "lennard-jones", EOS_NAMES)
+    ef.done()
+    if eos == "reference" and not probe.reference_eos:
+        raise InputError(
+            f"{p}: eos.name: probe {probe.name!r} has no reference equation of state;"
+            " use peng-robinson, lennard-jones or ideal"
+        )
+
+    if "pressures" not in data:
+        raise InputError(f"{p}: pressures: missing")
+    pf = _Fields(f"{p}: pressures", data["pressures"])
+    kinds = [k for k in ("Pa", "p_p0", "from_Pa", "from_p_p0") if k in pf.table]
+    if len(kinds) != 1:
+        raise InputError(
+            f"{p}: pressures: give exactly one of Pa, p_p0, from_Pa/to_Pa, from_p_p0/to_p_p0"
+        )
+    kind = kinds[0]
+    if kind == "Pa":
+        values = pf.numbers("Pa", required=True)
+    elif kind == "p_p0":
+        values = pf.numbers("p_p0", required=True)
+    elif kind == "from_Pa":
+        values = _spaced(f"{p}: pressures", pf, "from_Pa", "to_Pa")
+    else:
+        values = _spaced(f"{p}: pressures", pf, "from_p_p0", "to_p_p0")
+    descending = pf.boolean("descending", False)
+    pf.done()
+    assert values is not None
+    _increasing(f"{p}: pressures", values)
+    relative = kind in ("p_p0", "from_p_p0")
+    if relative:
+        if values[-1] > 1.0 + 1e-12:
+            raise InputError(f"{p}: pressures: p/p0 above 1 ({values[-1]:g}) is beyond saturation")
+        tc = probe.critical_temperature_K
+        for t in temps:
+            if eos != "lennard-jones" and math.isfinite(tc) and t >= tc:
+                raise InputError(
+                    f"{p}: pressures: p/p0 needs a subcritical temperature; "
+                    f"{t:g} K >= Tc = {tc:g} K"
+                )
+    grid = PressureGrid(
+        kind="relative" if relative else "absolute", values=tuple(values), descending=descending
+    )
+
+    sf = _Fields(f"{p}: sampling", data.get("sampling", {}))
+    d = SamplingSettings()
+    sampling = replace(
+        d,
+        equilibration_moves=sf.integer("equilibration_moves", d.equilibration_moves, 0),
+        production_moves=sf.integer("production_moves", d.production_moves, 1),
+        sample_every=sf.integer("sample_every", d.sample_every, 1),
+        insertion_trials=sf.integer("insertion_trials", d.insertion_trials, 0),
+        biased_trials=sf.integer("biased_trials", d.biased_trials, 2),
+        replicas=sf.integer("replicas", d.replicas, 1),
+        target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
+        max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),
+        exchange=sf.boolean("exchange", d.exchange),
+    )
+    sf.done()
+    try:
+        sampling.validate()
+    except InputError as exc:
+        raise InputError(f"{p}: {exc}") from None
+
+    ff = _Fields(f"{p}: fit", data.get("fit", {}))
+    forms = ff._get("forms", False)
+    from gcmc.kernel.forms import FORMS
+
+    if forms is None:
+        forms = list(FIT_DEFAULT_FORMS)
+    if not isinstance(forms, list) or not all(isinstance(x, str) for x in forms) or not forms:
+        raise InputError(f"{p}: fit.forms: expected a list of form names")
+    for fname in forms:
+        if fname not in FORMS:
+            raise InputError(
+                f"{p}: fit.forms: unknown form {fname!r}; known: {', '.join(sorted(FORMS))}"
+            )
+    fit = FitOptions(
+        forms=tuple(forms),
+        p_value_min=ff.number("p_value_min", 1e-3),  # type: ignore[arg-type]
+        above_range=ff.string("above_range", "clamp", ("clamp", "refuse")),
+        dense_points=ff.integer("dense_points", 200, 10),  # type: ignore[arg-type]
+    )
+    ff.done()
+
+    seed = data.get("seed", 2026)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise InputError(f"{p}: seed: expected a non-negative integer, got {seed!r}")
+
+    return RunConfig(
+        path=path,
+        text=text,
+        name=name,
+        output=out_dir,
+        probe=probe,
+        solid=solid,
+        cutoff_nm=cutoff,
+        box_nm=box,
+        widths_H_nm=tuple(widths),
+        temperatures_K=tuple(temps),
+        pressures=grid,
+        eos=eos,
+        sampling=sampling,
+        fit=fit,
+        seed=seed,
+    )

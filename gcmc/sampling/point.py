@@ -1,0 +1,591 @@
+"""One state point: equilibrate, produce, analyse. A pure function of (model, state, sampling
+settings, seed) returning a result record, cheap to call many times in one process.
+
+Convergence is not judged by block errors alone: a point can run as two replicas started from
+different sides (from the given start, usually the previous lower-pressure state, and from an
+over-filled state), each with a drift test (first half against second half); the point is
+flagged when they disagree beyond their errors.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+from gcmc.physics.henry import pore_limit
+from gcmc.physics.model import SLIT, PoreModel
+from gcmc.physics.units import activity_per_nm3, kelvin_to_kj_per_mol, per_nm3_to_mmol_per_cm3
+from gcmc.sampling import statistics as st
+from gcmc.sampling.box import Box, EngineOptions
+from gcmc.sampling.engine import C_DEL_ACC, C_INS_ACC
+from gcmc.sampling.rng import seed_state
+
+
+@dataclass(frozen=True)
+class ThermoState:
+    """The bulk reservoir a point is in equilibrium with."""
+
+    temperature_K: float
+    fugacity_Pa: float
+    pressure_Pa: float = float("nan")
+    bulk_density_per_nm3: float = float("nan")
+    residual_enthalpy_K: float = 0.0
+    eos: str = "none"
+
+    @property
+    def activity_nm3(self) -> float:
+        return activity_per_nm3(self.fugacity_Pa, self.temperature_K)
+
+
+@dataclass(frozen=True)
+class SamplingSettings:
+    """How hard to sample one point."""
+
+    equilibration_moves: int = 200_000
+    production_moves: int = 1_000_000
+    sample_every: int = 100
+    #: k trial positions per insertion; 0 = automatic (plain insertion, switched to biased
+    #: insertion with ``biased_trials`` when plain insertion is accepted less than
+    #: ``bias_threshold`` per attempt during equilibration).
+    insertion_trials: int = 0
+    #: defaults from benchmarks/bench_sampling.py (benchmarks/README.md, "Sampling efficiency"):
+    #: k = 64 converged fastest wherever biased insertion converged; k = 256 cost 3-4x more
+    #: per move for no gain; plain insertion below ~3 % acceptance was slower or failed.
+    biased_trials: int = 64
+    bias_threshold: float = 3.0e-2
+    displacement_fraction: float = 0.5
+    #: independent replicas per point; the second starts over-filled, so that a point stuck
+    #: in one packing is caught by the replicas' disagreement (benchmarks/README.md,
+    #: "Sampling efficiency"): block errors alone read small while the mean is still wrong.
+    replicas: int = 2
+    #: the over-filled start: half an equilibration at this multiple of the activity; a point
+    #: whose second replica started below the first one's mean (by more than agreement_rel)
+    #: is flagged not_bracketed
+    overfill_factor: float = 20.0
+    #: stop production when the relative standard error of N reaches this (0: fixed length)
+    target_rel_stderr: float = 0.0
+    max_production_moves: int = 0
+    #: replicas agree when |z| <= agreement_z or their means differ by <= agreement_rel
+    agreement_z: float = 3.0
+    agreement_rel: float = 0.01
+    cells_per_cutoff: int = 1
+    slab_tail: bool = True
+    #: replica exchange between neighbouring pressures of a ladder (gcmc.sampling.ladder)
+    exchange: bool = False
+
+    def validate(self) -> None:
+        from gcmc.errors import InputError
+
+        for name in ("equilibration_moves", "production_moves", "sample_every"):
+            v = getattr(self, name)
+            if not isinstance(v, int) or v < (1 if name != "equilibration_moves" else 0):
+                raise InputError(f"sampling.{name}: must be a positive integer, got {v!r}")
+        if self.production_moves < 20 * self.sample_every:
+            raise InputError("sampling.production_moves: must be at least 20 x sample_every")
+        if not 0.0 <= self.displacement_fraction < 1.0:
+            raise InputError("sampling.displacement_fraction: must be in [0, 1)")
+        if self.replicas < 1:
+            raise InputError("sampling.replicas: must be >= 1")
+        if self.target_rel_stderr < 0:
+            raise InputError("sampling.target_rel_stderr: must be >= 0")
+
+
+@dataclass
+class PointResult:
+    """Everything measured at one state point. Densities are per pore volume (A w)."""
+
+    temperature_K: float
+    pressure_Pa: float
+    fugacity_Pa: float
+    activity_per_nm3: float
+    eos: str
+    bulk_density_per_nm3: float
+    molecules_mean: float
+    molecules_stderr: float
+    density_per_nm3: float
+    density_per_nm3_stderr: float
+    excess_density_per_nm3: float
+    density_mmol_per_cm3: float
+    density_mmol_per_cm3_stderr: float
+    excess_density_mmol_per_cm3: float
+    fluid_fluid_energy_K: float
+    fluid_solid_energy_K: float
+    fluid_fluid_energy_kJ_per_mol: float
+    fluid_solid_energy_kJ_per_mol: float
+    isosteric_heat_kJ_per_mol: float
+    isosteric_heat_kJ_per_mol_stderr: float
+    statistical_inefficiency: float
+    equilibration_moves_detected: int
+    drift_z: float
+    replica_means: list[float]
+    replica_stderrs: list[float]
+    replica_agreement_z: float
+    acceptance: dict[str, float]
+    insertion_trials: int
+    moves: int
+    seconds: float
+    converged: bool
+    flags: list[str] = field(default_factory=list)
+    pore_volume_nm3: float = float("nan")
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+@dataclass
+class PointOutcome:
+    result: PointResult
+    positions: np.ndarray  # final configuration of the first replica (for the ladder)
+    max_displacement_nm: float
+    density_profile: np.ndarray  # mean molecules per z bin (first replica)
+    series_n: np.ndarray  # production samples of N (first replica, after the cut)
+
+
+@dataclass
+class _ReplicaRun:
+    n: np.ndarray
+    uff: np.ndarray
+    usf: np.ndarray
+    profile: np.ndarray
+    box: Box
+    moves: int
+    seconds: float
+    t0: int
+    k_trials: int
+    acceptance: dict[str, float]
+    start_n: int = -1  # molecules when production-side equilibration began (over-filled start)
+    exchanges: int = -1  # accepted insertions + deletions during production
+
+
+Progress = Callable[[int], None]
+
+#: A replica must accept at least this many insertions + deletions in production (and at
+#: least as many as the molecules it holds) for its mean N to count as sampled.
+MIN_EXCHANGES = 20
+
+
+def _too_few_exchanges(exchanges: int, mean_n: float) -> bool:
+    """N changes only through the reservoir: a replica holding a molecule or more on average
+    that accepted fewer insertions + deletions than it holds (or than MIN_EXCHANGES) has not
+    renewed its content even once, and its mean (and any error from it) reflects the
+    preparation more than the activity (a frozen, solid-like packing). Below one molecule the
+    pore is mostly empty and the Poisson-like block error already states the precision.
+    ``exchanges`` < 0: not recorded (replica-exchange rungs)."""
+    return mean_n >= 1.0 and 0 <= exchanges < max(MIN_EXCHANGES, mean_n)
+
+
+def _replicas_agree(
+    settings: SamplingSettings, m0: float, e0: float, m1: float, e1: float
+) -> tuple[float, bool]:
+    """(z, agree) of two replicas' means: within agreement_z combined errors or agreement_rel."""
+    return st.agreement(
+        m0, e0, m1, e1, threshold=settings.agreement_z, rel_tol=settings.agreement_rel
+    )
+
+
+def _equilibrate(
+    box: Box, moves: int, settings: SamplingSettings, progress: Progress | None, clock: list[float]
+) -> None:
+    """Run ``moves`` moves with step-size adaptation (equilibration only)."""
+    if moves <= 0:
+        return
+    chunks = 20
+    per = max(1, moves // chunks)
+    done = 0
+    sig = box.model.probe.sigma_nm
+    lmax = 0.5 * min(box.model.box_lengths_nm)
+    auto_bias = settings.insertion_trials == 0
+    while done < moves:
+        step = min(per, moves - done)
+        box.reset_counters()
+        t = time.perf_counter()
+        box.run(step)
+        clock[0] += time.perf_counter() - t
+        done += step
+        acc = box.acceptance()
+        a = acc["displacement"]
+        if math.isfinite(a):
+            box.max_displacement_nm = float(
+                np.clip(box.max_displacement_nm * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, lmax)
+            )
+        if auto_bias and done >= moves // 2 and box.ip[5] == 1:
+            ins = acc["insertion"]
+            if math.isfinite(ins) and ins < settings.bias_threshold and box.n_molecules > 0:
+                box.set_insertion_trials(settings.biased_trials)
+        if progress:
+            progress(step)
+
+
+class _Replica:
+    """One replica of a point: its box, prepared (over-filled if asked, equilibrated), then
+    produced in chunks, so that several replicas can run side by side until they agree."""
+
+    def __init__(
+        self,
+        model: PoreModel,
+        state: ThermoState,
+        settings: SamplingSettings,
+        rng: np.ndarray,
+        start: np.ndarray | None,
+        overfill: bool,
+        max_disp: float | None,
+        progress: Progress | None,
+    ) -> None:
+        options = EngineOptions(
+            cells_per_cutoff=settings.cells_per_cutoff,
+            insertion_trials=max(1, settings.insertion_trials),
+            displacement_fraction=settings.displacement_fraction,
+            slab_tail=settings.slab_tail,
+        )
+        z = state.activity_nm3
+        box = Box(
+            model, state.temperature_K, z, options, rng_state=rng, max_displacement_nm=max_disp
+        )
+        if start is not None and len(start):
+            box.load_positions(start)
+        self.box = box
+        self.settings = settings
+        self.progress = progress
+        self.clock = [0.0]
+        eq = settings.equilibration_moves
+        self.moves = 0  # all trial moves of this replica
+        self.start_n = -1
+        if overfill:
+            box.activity_nm3 = z * settings.overfill_factor
+            _equilibrate(box, eq // 2, settings, progress, self.clock)
+            self.moves += eq // 2
+            box.activity_nm3 = z
+            self.start_n = box.n_molecules
+        _equilibrate(box, eq, settings, progress, self.clock)
+        self.moves += eq
+        # production: room for the whole move budget when stopping on a target
+        every = settings.sample_every
+        budget = max(settings.production_moves, settings.max_production_moves)
+        self.total = settings.production_moves if settings.target_rel_stderr <= 0 else budget
+        n_samples = self.total // every
+        self.out_n = np.zeros(n_samples, dtype=np.int64)
+        self.out_uff = np.zeros(n_samples)
+        self.out_usf = np.zeros(n_samples)
+        self.profile = np.zeros(box.n_bins)
+        self.written = 0
+        self.produced = 0  # production moves
+        self.chunk = max(every, (settings.production_moves // 20) // every * every)
+        box.reset_counters()
+
+    @property
+    def exhausted(self) -> bool:
+        return self.produced >= self.total
+
+    def produce(self, moves: int) -> None:
+        step = min(moves, self.total - self.produced)
+        if step <= 0:
+            return
+        t = time.perf_counter()
+        self.written += self.box.run(
+            step,
+            self.settings.sample_every,
+            self.out_n,
+            self.out_uff,
+            self.out_usf,
+            self.written,
+            self.profile,
+        )
+        self.clock[0] += time.perf_counter() - t
+        self.produced += step
+        if self.progress:
+            self.progress(step)
+
+    @property
+    def exchanges(self) -> int:
+        """Accepted insertions + deletions so far in production."""
+        return int(self.box.counters[C_INS_ACC] + self.box.counters[C_DEL_ACC])
+
+    def meets_target(self) -> tuple[bool, float, float]:
+        """(done, mean, stderr) of N so far: the target relative error is met, the drift test
+        passes and the content was renewed through the reservoir (an empty pore is done)."""
+        if self.produced < self.settings.production_moves or self.written < 64:
+            return False, math.nan, math.nan
+        x = self.out_n[: self.written].astype(float)
+        if x.max() == 0.0:
+            return True, 0.0, 0.0  # nothing entered: nothing to converge
+        x = x[_equilibration_cut(x) :]  # judged as the point will be (see finish)
+        if len(x) < 64:
+            return False, math.nan, math.nan
+        est = st.block_average(x)
+        mean, err = est.mean, est.stderr
+        ok = (
+            est.reliable
+            and mean > 0
+            and err / mean <= self.settings.target_rel_stderr
+            and st.drift_test(x).passed
+            and not _too_few_exchanges(self.exchanges, mean)
+        )
+        return bool(ok), mean, err
+
+    def finish(self) -> _ReplicaRun:
+        n = self.out_n[: self.written]
+        uff = self.out_uff[: self.written]
+        usf = self.out_usf[: self.written]
+        t0 = _equilibration_cut(n)
+        return _ReplicaRun(
+            n=n[t0:],
+            uff=uff[t0:],
+            usf=usf[t0:],
+            profile=self.profile / max(self.written, 1),
+            box=self.box,
+            moves=self.moves + self.produced,
+            seconds=self.clock[0],
+            t0=t0,
+            k_trials=int(self.box.ip[5]),
+            acceptance=self.box.acceptance(),
+            start_n=self.start_n,
+            exchanges=self.exchanges,
+        )
+
+
+def _equilibration_cut(n: np.ndarray) -> int:
+    """Samples to drop from the start of a production series (Chodera 2016; none if the
+    series is short or constant)."""
+    if len(n) >= 40 and np.ptp(n) > 0:
+        return int(st.detect_equilibration(np.asarray(n, dtype=float))[0])
+    return 0
+
+
+def _produce_replicas(reps: list[_Replica], settings: SamplingSettings) -> None:
+    """Production of all replicas of a point, in alternating chunks. With a fixed length, each
+    runs production_moves. With a target relative error, they run until every replica meets
+    it (with the drift and exchange tests) and the replicas agree (the same test as the point's
+    replicas_disagree flag), or until the move budget is spent: easy points stop early, hard
+    ones use the budget and keep their flags."""
+    target = settings.target_rel_stderr > 0
+    while not all(r.exhausted for r in reps):
+        for r in reps:
+            r.produce(r.chunk)
+        if not target:
+            continue
+        checks = [r.meets_target() for r in reps]
+        if not all(c[0] for c in checks):
+            continue
+        if len(reps) >= 2:
+            _, agree = _replicas_agree(settings, *checks[0][1:], *checks[1][1:])
+            if not agree:
+                continue
+        break
+
+
+def _blocked_result(model: PoreModel, state: ThermoState) -> PointOutcome:
+    nan = float("nan")
+    r = PointResult(
+        temperature_K=state.temperature_K,
+        pressure_Pa=state.pressure_Pa,
+        fugacity_Pa=state.fugacity_Pa,
+        activity_per_nm3=state.activity_nm3,
+        eos=state.eos,
+        bulk_density_per_nm3=state.bulk_density_per_nm3,
+        molecules_mean=0.0,
+        molecules_stderr=0.0,
+        density_per_nm3=0.0,
+        density_per_nm3_stderr=0.0,
+        excess_density_per_nm3=0.0,
+        density_mmol_per_cm3=0.0,
+        density_mmol_per_cm3_stderr=0.0,
+        excess_density_mmol_per_cm3=0.0,
+        fluid_fluid_energy_K=nan,
+        fluid_solid_energy_K=nan,
+        fluid_fluid_energy_kJ_per_mol=nan,
+        fluid_solid_energy_kJ_per_mol=nan,
+        isosteric_heat_kJ_per_mol=nan,
+        isosteric_heat_kJ_per_mol_stderr=nan,
+        statistical_inefficiency=1.0,
+        equilibration_moves_detected=0,
+        drift_z=0.0,
+        replica_means=[0.0],
+        replica_stderrs=[0.0],
+        replica_agreement_z=0.0,
+        acceptance={},
+        insertion_trials=0,
+        moves=0,
+        seconds=0.0,
+        converged=True,
+        flags=["inaccessible"],
+        pore_volume_nm3=model.pore_volume_nm3,
+    )
+    return PointOutcome(
+        result=r,
+        positions=np.zeros((0, 3)),
+        max_displacement_nm=0.0,
+        density_profile=np.zeros(1),
+        series_n=np.zeros(0),
+    )
+
+
+def simulate_point(
+    model: PoreModel,
+    state: ThermoState,
+    settings: SamplingSettings,
+    seed: np.random.SeedSequence | int,
+    start: np.ndarray | None = None,
+    max_displacement_nm: float | None = None,
+    progress: Progress | None = None,
+) -> PointOutcome:
+    """Simulate one state point. ``start`` is an initial configuration (e.g. the previous
+    point of a pressure ladder); the result is a deterministic function of the arguments."""
+    if model.geometry == SLIT and pore_limit(model, state.temperature_K).blocked:
+        return _blocked_result(model, state)
+    ss = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
+    streams = ss.spawn(settings.replicas)
+    reps = [
+        _Replica(
+            model,
+            state,
+            settings,
+            seed_state(streams[r]),
+            start,
+            overfill=(r == 1),
+            max_disp=max_displacement_nm,
+            progress=progress,
+        )
+        for r in range(settings.replicas)
+    ]
+    _produce_replicas(reps, settings)
+    runs = [r.finish() for r in reps]
+    return _analyse(model, state, settings, runs)
+
+
+def _analyse(
+    model: PoreModel, state: ThermoState, settings: SamplingSettings, runs: list[_ReplicaRun]
+) -> PointOutcome:
+    flags: list[str] = []
+    vol = model.pore_volume_nm3
+    ests = [st.block_average(r.n.astype(float)) for r in runs]
+    means = [e.mean for e in ests]
+    errs = [e.stderr for e in ests]
+    for i, e in enumerate(ests):
+        if not e.reliable:
+            flags.append(f"error_unreliable[{i}]: {e.reason}")
+    drift = [st.drift_test(r.n.astype(float)) if len(r.n) >= 40 else None for r in runs]
+    dz = 0.0
+    for i, d in enumerate(drift):
+        if d is None:
+            flags.append(f"too_few_samples[{i}]")
+        else:
+            dz = max(dz, abs(d.z_score)) if math.isfinite(d.z_score) else dz
+            if not d.passed:
+                flags.append(f"drift[{i}]: first vs second half z = {d.z_score:.1f}")
+    agree_z = 0.0
+    if len(runs) >= 2:
+        agree_z, ok = _replicas_agree(settings, means[0], errs[0], means[1], errs[1])
+        if not ok:
+            flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
+    for i, r in enumerate(runs):
+        if _too_few_exchanges(r.exchanges, means[i]):
+            flags.append(
+                f"few_exchanges[{i}]: {r.exchanges} accepted insertions + deletions in "
+                f"production for N = {means[i]:.4g}"
+            )
+    below = means[0] * (1.0 - settings.agreement_rel)
+    if len(runs) >= 2 and means[0] >= 1.0 and 0 <= runs[1].start_n < below:
+        # the two-sided check needs the second replica to come from above, or at least from
+        # no further below than the replicas' agreement tolerance (a nearly incompressible,
+        # filled pore barely takes more molecules at 20 z); below one molecule on average the
+        # replicas mix at once and the over-fill may land on N = 0 by chance
+        flags.append(
+            f"not_bracketed: the over-filled replica started at N = {runs[1].start_n}, below "
+            f"the first replica's mean {means[0]:.4g}"
+        )
+    # Pool the replicas (inverse-variance weights where errors are available).
+    w = np.array([1.0 / e**2 if e > 0 else 0.0 for e in errs])
+    if w.sum() > 0 and all(e > 0 for e in errs):
+        n_mean = float(np.sum(w * means) / w.sum())
+        n_err = float(1.0 / math.sqrt(w.sum()))
+    else:
+        n_mean = float(np.mean(means))
+        n_err = float(max(errs)) if errs else float("nan")
+    if len(runs) >= 2 and "replicas_disagree" in " ".join(flags):
+        n_err = max(n_err, 0.5 * abs(means[0] - means[1]))  # an honest spread
+    n_all = np.concatenate([r.n for r in runs]).astype(float)
+    u_all = np.concatenate([r.uff + r.usf for r in runs])
+    uff_all = np.concatenate([r.uff for r in runs])
+    usf_all = np.concatenate([r.usf for r in runs])
+    nbar = float(n_all.mean()) if len(n_all) else 0.0
+    eff = nbar if nbar > 0 else float("nan")
+    uff_per = float(uff_all.mean() / eff) if len(uff_all) else float("nan")
+    usf_per = float(usf_all.mean() / eff) if len(usf_all) else float("nan")
+    q = q_err = float("nan")
+    if len(n_all) > 64 and np.var(n_all) > 0:
+        ratio, ratio_err = st.fluctuation_ratio(runs[0].uff + runs[0].usf, runs[0].n.astype(float))
+        if math.isfinite(ratio):
+            q = kelvin_to_kj_per_mol(state.temperature_K + state.residual_enthalpy_K - ratio)
+            q_err = kelvin_to_kj_per_mol(ratio_err)
+    del u_all
+    ineff = ests[0].inefficiency
+    density = n_mean / vol if vol > 0 else float("nan")
+    density_err = n_err / vol if vol > 0 else float("nan")
+    bulk = state.bulk_density_per_nm3
+    excess = density - bulk if math.isfinite(bulk) else float("nan")
+    converged = not any(
+        f.startswith(
+            ("drift", "replicas_disagree", "error_unreliable", "too_few", "not_bracketed", "few_ex")
+        )
+        for f in flags
+    )
+    if (
+        settings.target_rel_stderr > 0
+        and n_mean > 0
+        and n_err / n_mean > settings.target_rel_stderr
+    ):
+        flags.append(
+            f"target_not_reached: rel. error {n_err / n_mean:.2g} > "
+            f"{settings.target_rel_stderr:.2g} within the move budget"
+        )
+        converged = False
+    r0 = runs[0]
+    result = PointResult(
+        temperature_K=state.temperature_K,
+        pressure_Pa=state.pressure_Pa,
+        fugacity_Pa=state.fugacity_Pa,
+        activity_per_nm3=state.activity_nm3,
+        eos=state.eos,
+        bulk_density_per_nm3=bulk,
+        molecules_mean=n_mean,
+        molecules_stderr=n_err,
+        density_per_nm3=density,
+        density_per_nm3_stderr=density_err,
+        excess_density_per_nm3=excess,
+        density_mmol_per_cm3=per_nm3_to_mmol_per_cm3(density),
+        density_mmol_per_cm3_stderr=per_nm3_to_mmol_per_cm3(density_err),
+        excess_density_mmol_per_cm3=per_nm3_to_mmol_per_cm3(excess),
+        fluid_fluid_energy_K=uff_per,
+        fluid_solid_energy_K=usf_per,
+        fluid_fluid_energy_kJ_per_mol=kelvin_to_kj_per_mol(uff_per),
+        fluid_solid_energy_kJ_per_mol=kelvin_to_kj_per_mol(usf_per),
+        isosteric_heat_kJ_per_mol=q,
+        isosteric_heat_kJ_per_mol_stderr=q_err,
+        statistical_inefficiency=float(ineff),
+        equilibration_moves_detected=int(
+            settings.equilibration_moves + r0.t0 * settings.sample_every
+        ),
+        drift_z=float(dz),
+        replica_means=[float(m) for m in means],
+        replica_stderrs=[float(e) for e in errs],
+        replica_agreement_z=float(agree_z),
+        acceptance=r0.acceptance,
+        insertion_trials=r0.k_trials,
+        moves=int(sum(r.moves for r in runs)),
+        seconds=float(sum(r.seconds for r in runs)),
+        converged=converged,
+        flags=flags,
+        pore_volume_nm3=vol,
+    )
+    return PointOutcome(
+        result=result,
+        positions=r0.box.positions(),
+        max_displacement_nm=r0.box.max_displacement_nm,
+        density_profile=r0.profile,
+        series_n=r0.n,
+    )
