@@ -3,9 +3,7 @@
 from __future__ import annotations
 
 import argparse
-import os
 import sys
-import time
 from collections import Counter
 
 import numpy as np
@@ -43,21 +41,19 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from gcmc.errors import InputError
-    from gcmc.pipeline.runner import mpi_world_size
+    from gcmc.pipeline.build import build_kernel, mpi_rank_and_size
 
     if args.workers < 0:
         raise InputError(f"--workers: must be >= 0, got {args.workers}")
-    size = mpi_world_size()
-    rank = 0
-    if size > 1:
-        from mpi4py import MPI
-
-        # the launcher's environment is a hint; the communicator decides (a process started
-        # by srun without an MPI plugin is a singleton and builds with a local pool instead)
-        size = MPI.COMM_WORLD.Get_size()
-        rank = MPI.COMM_WORLD.Get_rank()
+    rank, size = mpi_rank_and_size()
     try:
-        return _run(args, size, rank)
+        result = build_kernel(
+            args.config,
+            workers=args.workers,
+            progress=not args.no_progress,
+            plan_only=args.check_only,
+            on_plan=_print_plan,
+        )
     except InputError as exc:
         if size > 1:
             print(f"gcmc build: error: {exc}", file=sys.stderr)
@@ -65,122 +61,51 @@ def run(args: argparse.Namespace) -> int:
 
             MPI.COMM_WORLD.Abort(2)
         raise
-
-
-def _run(args: argparse.Namespace, size: int, rank: int) -> int:
-    from gcmc.kernel.writer import next_version
-    from gcmc.pipeline.config import load_config
-    from gcmc.pipeline.runner import start_local_pool
-    from gcmc.pipeline.tasks import make_plan
-
-    t_start = time.perf_counter()
-    cfg = load_config(args.config)  # validates every field before anything is written
-    say = print if rank == 0 else (lambda *a, **k: None)
-    version, existing = next_version(cfg.output, cfg.name, cfg.config_hash)
-    if existing is not None:
-        say(f"kernel up to date: {existing} (same config; nothing to do)")
+    if rank != 0:
         return 0
-    workers = args.workers or os.cpu_count() or 1
-    n_tasks = len(cfg.temperatures_K) * len(cfg.widths_H_nm)
-    pool = None
-    if size == 1 and not args.check_only and min(workers, n_tasks) > 1:
-        # the workers start (imports, compiled engine) while the EOS states are computed
-        pool = start_local_pool(min(workers, n_tasks))
-    try:
-        plan = make_plan(cfg)  # EOS states: may still refuse a state (one line, exit 2)
-        return _build(args, cfg, plan, version, workers, pool, size, rank, t_start)
-    finally:
-        if pool is not None:
-            pool.shutdown(wait=True, cancel_futures=True)
+    if result.status == "up_to_date":
+        print(f"kernel up to date: {result.path} (same config; nothing to do)")
+        return 0
+    if result.status == "incomplete":
+        _print_incomplete(result)
+        return 1
+    if result.status == "written":
+        _summary(result)
+    return 0
 
 
-def _build(args, cfg, plan, version, workers, pool, size, rank, t_start) -> int:  # noqa: ANN001, PLR0913
-    from gcmc.kernel.writer import write_kernel
-    from gcmc.pipeline.assemble import assemble_kernel
-    from gcmc.pipeline.runner import (
-        BuildLock,
-        BuildLog,
-        progress_bar,
-        run_tasks_local,
-        run_tasks_mpi,
-    )
-
-    say = print if rank == 0 else (lambda *a, **k: None)
-    say(
-        f"{cfg.name} v{version}: {cfg.probe.name}, {len(cfg.temperatures_K)} temperature(s) x "
-        f"{len(cfg.widths_H_nm)} widths x {len(cfg.pressures.values)} pressures"
+def _print_plan(result) -> None:  # noqa: ANN001
+    cfg, plan = result.config, result.plan
+    print(
+        f"{cfg.name} v{result.version}: {cfg.probe.name}, {len(cfg.temperatures_K)} "
+        f"temperature(s) x {len(cfg.widths_H_nm)} widths x {len(cfg.pressures.values)} pressures"
         f"{' (+ desorption)' if cfg.pressures.descending else ''} = {plan.n_points} points in "
         f"{len(plan.tasks)} tasks; EOS {cfg.eos}; "
-        + (f"{size} MPI ranks" if size > 1 else f"{workers} worker(s)")
+        + (f"{result.ranks} MPI ranks" if result.ranks > 1 else f"{result.workers} worker(s)")
     )
-    if args.check_only:
-        return 0
-    lock = BuildLock(cfg.output / f"{cfg.name}.lock")
-    log = BuildLog(cfg.output / f"{cfg.name}.log")
-    if rank == 0:
-        lock.acquire()
-    try:
-        if size > 1:
-            from mpi4py import MPI
-
-            MPI.COMM_WORLD.Barrier()
-        from gcmc.pipeline.tasks import pending_tasks
-
-        per = plan.n_points // max(len(plan.tasks), 1)
-        done_before = len(plan.tasks) - len(pending_tasks(plan))
-        if rank == 0:
-            log.write(
-                f"build {cfg.name} v{version} config {cfg.config_hash[:16]} "
-                f"({done_before}/{len(plan.tasks)} tasks already on disk)"
-            )
-        bar = progress_bar(
-            plan.n_points, done_before * per, enabled=(rank == 0 and not args.no_progress)
-        )
-        with bar:
-            if size > 1:
-                report = run_tasks_mpi(plan, log, bar if rank == 0 else None)
-            else:
-                report = run_tasks_local(plan, workers, log, bar, pool=pool)
-        if rank != 0:
-            return 0
-        missing_tasks = pending_tasks(plan)
-        missing = [t.key for t in missing_tasks]
-        if missing:
-            log.write(f"build incomplete: {len(missing)} task(s) missing: {', '.join(missing)}")
-            print(
-                f"gcmc build: {len(missing)} of {len(plan.tasks)} task(s) failed or missing "
-                f"({', '.join(missing[:8])}{'...' if len(missing) > 8 else ''}); see "
-                f"{log.path}. Rerun the same command to retry them.",
-                file=sys.stderr,
-            )
-            for t in missing_tasks[:8]:  # every rank's failures, with their coordinates
-                print(f"  {_failure_line(plan, t)}", file=sys.stderr)
-            return 1
-        data, fits = assemble_kernel(plan, version)
-        path = write_kernel(data, cfg.output)
-        log.write(f"kernel written: {path}")
-        _summary(plan, data, fits, report, path, time.perf_counter() - t_start)
-        return 0
-    finally:
-        if rank == 0:
-            lock.release()
 
 
-def _failure_line(plan, task) -> str:  # noqa: ANN001
-    import json
+def _print_incomplete(result) -> None:  # noqa: ANN001
+    from gcmc.pipeline.build import failure_line
 
-    from gcmc.pipeline.tasks import failure_path
+    plan, missing = result.plan, result.missing
+    keys = [t.key for t in missing]
+    log_path = result.config.output / f"{result.config.name}.log"
+    print(
+        f"gcmc build: {len(missing)} of {len(plan.tasks)} task(s) failed or missing "
+        f"({', '.join(keys[:8])}{'...' if len(keys) > 8 else ''}); see "
+        f"{log_path}. Rerun the same command to retry them.",
+        file=sys.stderr,
+    )
+    for t in missing[:8]:  # every rank's failures, with their coordinates
+        print(f"  {failure_line(plan, t)}", file=sys.stderr)
 
-    try:
-        return json.loads(failure_path(plan, task).read_text())["error"]
-    except (OSError, ValueError, KeyError):
-        t = plan.temperatures[task.t_index].temperature_K
-        h = plan.config.widths_H_nm[task.w_index]
-        return f"task {task.key} (T = {t:g} K, H = {h:g} nm): not run"
 
-
-def _summary(plan, data, fits, report, path, seconds) -> None:  # noqa: ANN001
+def _summary(result) -> None:  # noqa: ANN001
     from gcmc.cli.kernel import _flag_tokens
+
+    plan, data, fits, report = result.plan, result.data, result.fits, result.report
+    path, seconds = result.path, result.wall_seconds
 
     pts = data.points["adsorption"]
     n = pts["density_per_nm3"]
