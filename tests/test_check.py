@@ -38,13 +38,12 @@ from gcmc.physics.units import BOLTZMANN_J_PER_K, MMOL_PER_CM3_PER_NM3, NM3_PER_
 from gcmc.quality.criteria import (
     CheckSettings,
     SyntheticPSD,
-    diff_kernels,
-    format_diff,
     format_table,
     round_trip,
     run_checks,
     runs_test,
 )
+from gcmc.quality.diff import diff_kernels, format_diff
 from gcmc.quality.inversion import gcv_value, invert, second_difference, solve_nnls_tikhonov
 from gcmc.quality.resolution import NoiseModel, resolving_power
 

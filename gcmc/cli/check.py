@@ -247,7 +247,7 @@ def run_check(args: argparse.Namespace) -> int:
 
 def run_diff(args: argparse.Namespace) -> int:
     from gcmc.kernel.reader import open_kernel
-    from gcmc.quality.criteria import diff_kernels, format_diff
+    from gcmc.quality.diff import diff_kernels, format_diff
 
     _positive("max-sigma", args.max_sigma)
     a = open_kernel(args.a)
