@@ -486,3 +486,47 @@ def test_replicas_run_on_until_they_agree() -> None:
     settings = SamplingSettings(target_rel_stderr=0.01, agreement_rel=0.0)
     _produce_replicas([a, b], settings)  # type: ignore[list-item]
     assert a.calls == b.calls == 4
+
+
+def test_replicas_of_a_point_sample_with_one_insertion_method(monkeypatch) -> None:  # noqa: ANN001
+    """The replica from below and the over-filled one must sample one ensemble with one
+    method: the insertion method (plain or biased) is decided once per point, for both.
+    Methane in a 1 nm slit at 0.3 MPa fugacity: plain insertion is accepted well above the
+    3 % threshold at the point's activity, but not in the over-filled preparation at 20 z (a
+    replica deciding from its own over-filled start would switch to biased insertion alone)."""
+    import gcmc.sampling.point as point_mod
+
+    seen: list[list[int]] = []
+    analyse = point_mod._analyse
+
+    def spy(model, state, settings, runs):  # noqa: ANN001, ANN202
+        seen.append([r.k_trials for r in runs])
+        return analyse(model, state, settings, runs)
+
+    monkeypatch.setattr(point_mod, "_analyse", spy)
+    model = methane_slit(1.0)
+    state = ThermoState(temperature_K=298.15, fugacity_Pa=3.0e5)
+    settings = SamplingSettings(
+        equilibration_moves=20_000, production_moves=4_000, sample_every=100, replicas=2
+    )
+    out = simulate_point(model, state, settings, 5).result
+    assert len(set(seen[-1])) == 1, f"replicas sampled with k = {seen[-1]}"
+    assert out.replica_insertion_trials == seen[-1]
+    assert out.insertion_trials == seen[-1][0]
+
+
+def test_shared_insertion_rule_pools_the_replicas() -> None:
+    """The shared rule: a configured method is used as given; automatic: biased insertion when
+    the pooled plain-insertion acceptance of all replicas is below the threshold (and the pore
+    holds a molecule), plain otherwise; one replica's low acceptance alone does not decide."""
+    from gcmc.sampling.point import shared_insertion_trials
+
+    auto = SamplingSettings(insertion_trials=0, biased_trials=64, bias_threshold=0.03)
+    assert shared_insertion_trials(SamplingSettings(insertion_trials=8), [10], [0], [True]) == 8
+    # 2 % and 6 %: pooled 4 % >= 3 %: plain for both
+    assert shared_insertion_trials(auto, [1000, 1000], [20, 60], [True, True]) == 1
+    # 2 % and 3 %: pooled 2.5 %: biased for both
+    assert shared_insertion_trials(auto, [1000, 1000], [20, 30], [True, True]) == 64
+    # nothing held (an inaccessible or empty pore) or nothing measured: plain
+    assert shared_insertion_trials(auto, [1000, 1000], [0, 0], [False, False]) == 1
+    assert shared_insertion_trials(auto, [0, 0], [0, 0], [True, True]) == 1

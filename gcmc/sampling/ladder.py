@@ -55,6 +55,7 @@ from gcmc.sampling.point import (
     _analyse,
     _blocked_result,
     _ReplicaRun,
+    shared_insertion_trials,
 )
 from gcmc.sampling.rng import seed_state
 
@@ -109,6 +110,10 @@ class _Rung:
         self.moves = 0
         self.seconds = 0.0
         self.counters = np.zeros(6, dtype=np.int64)
+        # insertion attempts / acceptances in the measurement window of the shared
+        # insertion-method rule (second half of the first equilibration half)
+        self.ins_tries = 0
+        self.ins_accepts = 0
 
     def take(self, box: Box) -> None:
         box.activity_nm3 = self.z
@@ -212,10 +217,10 @@ class _Ladder:
                 self.accepts[i] += 1
                 self.boxes[i], self.boxes[j] = self.boxes[j], self.boxes[i]
 
-    def adapt(self, allow_bias: bool) -> None:
-        """Step-size adaptation (and the auto-bias switch) from the last rounds' counters,
-        per rung; equilibration only."""
-        s = self.settings
+    def adapt(self, measure: bool) -> None:
+        """Step-size adaptation from the last rounds' counters, per rung; equilibration only.
+        ``measure``: add the rounds' insertion counts to the rung's measurement window (the
+        insertion method is decided per rung for all replicas alike, see simulate_ladder)."""
         for k, rung in enumerate(self.rungs):
             box = self.boxes[k]
             acc = rung.acceptance()
@@ -224,16 +229,17 @@ class _Ladder:
             lmax = 0.5 * min(box.model.box_lengths_nm)
             if math.isfinite(a):
                 rung.dmax = float(np.clip(rung.dmax * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, lmax))
-            if allow_bias and s.insertion_trials == 0 and rung.k_trials == 1:
-                ins = acc["insertion"]
-                if math.isfinite(ins) and ins < s.bias_threshold and box.n_molecules > 0:
-                    rung.k_trials = s.biased_trials
+            if measure:
+                rung.ins_tries += int(rung.counters[2])
+                rung.ins_accepts += int(rung.counters[3])
             rung.counters[:] = 0
 
     def rounds_for(self, moves: int) -> int:
         return max(1, math.ceil(moves / self.round_moves))
 
-    def equilibrate(self, moves: int, z_scale: float = 1.0) -> None:
+    def equilibrate(self, moves: int, z_scale: float = 1.0, measure: bool = False) -> None:
+        """``moves`` per box in rounds with swaps and step-size adaptation; ``measure``: count
+        the insertions of the second half of these rounds per rung."""
         if moves <= 0:
             return
         n_rounds = self.rounds_for(moves)
@@ -241,7 +247,7 @@ class _Ladder:
         for r in range(n_rounds):
             self.run_round(z_scale)
             if (r + 1) % per_adapt == 0:
-                self.adapt(allow_bias=(z_scale == 1.0 and r >= n_rounds // 2))
+                self.adapt(measure=(measure and z_scale == 1.0 and r >= n_rounds // 2))
 
     def produce(self) -> None:
         s = self.settings
@@ -357,15 +363,29 @@ def simulate_ladder(
     capacity = math.ceil(total / m) * (m // every)
     ladders = []
     t_start = time.perf_counter()
+    eq = settings.equilibration_moves
+    first = eq // 2
     for r, stream in enumerate(ss.spawn(settings.replicas)):
         lad = _Ladder(
             model, sorted_states, settings, stream, sorted_starts, max_displacement_nm, m, capacity
         )
         if r == 1:
-            lad.equilibrate(settings.equilibration_moves // 2, z_scale=settings.overfill_factor)
-        lad.equilibrate(settings.equilibration_moves)
-        lad.produce()
+            lad.equilibrate(eq // 2, z_scale=settings.overfill_factor)
+        lad.equilibrate(first, measure=True)
         ladders.append(lad)
+    # one insertion method per rung for every replica of it (the point sampler's rule)
+    for k in range(len(sorted_states)):
+        k_trials = shared_insertion_trials(
+            settings,
+            [lad.rungs[k].ins_tries for lad in ladders],
+            [lad.rungs[k].ins_accepts for lad in ladders],
+            [lad.boxes[k].n_molecules > 0 for lad in ladders],
+        )
+        for lad in ladders:
+            lad.rungs[k].k_trials = k_trials
+    for lad in ladders:
+        lad.equilibrate(eq - first)
+        lad.produce()
     runs = [lad.replica_runs() for lad in ladders]
     attempts = sum(lad.attempts for lad in ladders)
     accepts = sum(lad.accepts for lad in ladders)

@@ -22,7 +22,7 @@ from gcmc.physics.model import SLIT, PoreModel
 from gcmc.physics.units import activity_per_nm3, kelvin_to_kj_per_mol, per_nm3_to_mmol_per_cm3
 from gcmc.sampling import statistics as st
 from gcmc.sampling.box import Box, EngineOptions
-from gcmc.sampling.engine import C_DEL_ACC, C_INS_ACC
+from gcmc.sampling.engine import C_DEL_ACC, C_INS_ACC, C_INS_TRY
 from gcmc.sampling.rng import seed_state
 
 
@@ -132,6 +132,9 @@ class PointResult:
     converged: bool
     flags: list[str] = field(default_factory=list)
     pore_volume_nm3: float = float("nan")
+    #: the insertion method (k trial positions, 1 = plain) each replica sampled with; one
+    #: value for all replicas of a point (decided once per point, shared_insertion_trials)
+    replica_insertion_trials: list[int] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -189,24 +192,41 @@ def _replicas_agree(
 
 
 def _equilibrate(
-    box: Box, moves: int, settings: SamplingSettings, progress: Progress | None, clock: list[float]
-) -> None:
-    """Run ``moves`` moves with step-size adaptation (equilibration only)."""
+    box: Box,
+    moves: int,
+    settings: SamplingSettings,
+    progress: Progress | None,
+    clock: list[float],
+    auto_bias: bool = False,
+) -> tuple[int, int]:
+    """Run ``moves`` moves with step-size adaptation (equilibration only). Returns the
+    insertion attempts and acceptances of the second half of these moves (the window the
+    shared insertion-method rule reads, see :func:`shared_insertion_trials`).
+
+    ``auto_bias``: switch this box to biased insertion in the second half when plain insertion
+    is accepted less than ``bias_threshold`` per attempt. Only the over-filled replica's
+    preparation at a multiple of the activity uses it (any method that fills the pore will
+    do there); the method the replicas sample with is decided for both of them at once."""
+    tries = accepts = 0
     if moves <= 0:
-        return
+        return tries, accepts
     chunks = 20
     per = max(1, moves // chunks)
     done = 0
     sig = box.model.probe.sigma_nm
     lmax = 0.5 * min(box.model.box_lengths_nm)
-    auto_bias = settings.insertion_trials == 0
+    auto_bias = auto_bias and settings.insertion_trials == 0
     while done < moves:
         step = min(per, moves - done)
         box.reset_counters()
         t = time.perf_counter()
         box.run(step)
         clock[0] += time.perf_counter() - t
+        second_half = done >= moves // 2
         done += step
+        if second_half:
+            tries += int(box.counters[C_INS_TRY])
+            accepts += int(box.counters[C_INS_ACC])
         acc = box.acceptance()
         a = acc["displacement"]
         if math.isfinite(a):
@@ -219,6 +239,32 @@ def _equilibrate(
                 box.set_insertion_trials(settings.biased_trials)
         if progress:
             progress(step)
+    return tries, accepts
+
+
+def shared_insertion_trials(
+    settings: SamplingSettings, tries: list[int], accepts: list[int], holds: list[bool]
+) -> int:
+    """The insertion method (k trial positions; 1 = plain) that every replica of a point
+    samples with, decided once per point from all its replicas alike.
+
+    A fixed ``settings.insertion_trials`` > 0 is used as given. Automatic (0): biased
+    insertion with ``biased_trials`` when plain insertion at the point's activity, pooled over
+    the replicas' measurement windows (``tries``, ``accepts``: insertion attempts and
+    acceptances per replica), is accepted less than ``bias_threshold`` per attempt and some
+    replica holds a molecule (``holds``); plain insertion otherwise. Pooling makes the
+    decision a property of the point, not of one replica's start: the replica from below and
+    the over-filled one would otherwise each decide from their own history, sample with
+    different methods (different statistical inefficiencies, different error estimates) and
+    inflate their agreement z-scores."""
+    if settings.insertion_trials > 0:
+        return int(settings.insertion_trials)
+    n_try = int(sum(tries))
+    if n_try == 0 or not any(holds):
+        return 1
+    if sum(accepts) / n_try < settings.bias_threshold:
+        return int(settings.biased_trials)
+    return 1
 
 
 class _Replica:
@@ -257,12 +303,30 @@ class _Replica:
         self.start_n = -1
         if overfill:
             box.activity_nm3 = z * settings.overfill_factor
-            _equilibrate(box, eq // 2, settings, progress, self.clock)
+            _equilibrate(box, eq // 2, settings, progress, self.clock, auto_bias=True)
             self.moves += eq // 2
             box.activity_nm3 = z
             self.start_n = box.n_molecules
-        _equilibrate(box, eq, settings, progress, self.clock)
-        self.moves += eq
+            # the preparation's method is not the sampling method: back to the configured
+            # one (plain when automatic) until the point decides for all replicas
+            box.set_insertion_trials(max(1, settings.insertion_trials))
+        # first half of the equilibration at the point's activity, with the configured method
+        # (plain when automatic); its second half is the measurement window of the shared rule
+        first = eq // 2
+        self.insertion_tries, self.insertion_accepts = _equilibrate(
+            box, first, settings, progress, self.clock
+        )
+        self.moves += first
+        self.rest = eq - first
+        self.settled = False
+
+    def settle(self, k_trials: int) -> None:
+        """Adopt the point's insertion method and run the rest of the equilibration."""
+        settings, box = self.settings, self.box
+        box.set_insertion_trials(k_trials)
+        _equilibrate(box, self.rest, settings, self.progress, self.clock)
+        self.moves += self.rest
+        self.settled = True
         # production: room for the whole move budget when stopping on a target
         every = settings.sample_every
         budget = max(settings.production_moves, settings.max_production_moves)
@@ -452,6 +516,14 @@ def simulate_point(
         )
         for r in range(settings.replicas)
     ]
+    k_trials = shared_insertion_trials(
+        settings,
+        [r.insertion_tries for r in reps],
+        [r.insertion_accepts for r in reps],
+        [r.box.n_molecules > 0 for r in reps],
+    )
+    for r in reps:
+        r.settle(k_trials)
     _produce_replicas(reps, settings)
     runs = [r.finish() for r in reps]
     return _analyse(model, state, settings, runs)
@@ -581,6 +653,7 @@ def _analyse(
         converged=converged,
         flags=flags,
         pore_volume_nm3=vol,
+        replica_insertion_trials=[int(r.k_trials) for r in runs],
     )
     return PointOutcome(
         result=result,
