@@ -146,23 +146,27 @@ def _table(named: dict[str, list[dict]]) -> str:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--seeds", type=int, default=5, help="seeds 1..N (default 5)")
+    ap.add_argument("--seeds", type=int, default=5, help="number of seeds (default 5)")
+    ap.add_argument("--first-seed", type=int, default=1, help="seeds first..first+N-1")
     ap.add_argument("--equilibration", type=int, default=20_000)
     ap.add_argument("--production", type=int, default=200_000)
     ap.add_argument("--every", type=int, default=50)
     ap.add_argument("--json", type=Path, help="write the per-point records here")
     ap.add_argument("--label", default="this code")
-    ap.add_argument("--compare", nargs="+", type=Path, help="tabulate saved runs (label=path)")
+    ap.add_argument(
+        "--compare", nargs="+", type=Path, help="tabulate saved runs (files of one label pooled)"
+    )
     args = ap.parse_args()
     if args.compare:
         named = {}
         for p in args.compare:
             rec = json.loads(p.read_text())
-            named[rec["label"]] = rec["points"]
+            named.setdefault(rec["label"], []).extend(rec["points"])
         print(_table(named))
         return
     t0 = time.perf_counter()
-    rows = run(list(range(1, args.seeds + 1)), args.equilibration, args.production, args.every)
+    seeds = list(range(args.first_seed, args.first_seed + args.seeds))
+    rows = run(seeds, args.equilibration, args.production, args.every)
     wall = time.perf_counter() - t0
     if args.json:
         tmp = args.json.with_name(f".{args.json.name}.tmp")
@@ -170,7 +174,7 @@ def main() -> None:
             json.dumps(
                 {
                     "label": args.label,
-                    "seeds": args.seeds,
+                    "seeds": seeds,
                     "equilibration_moves": args.equilibration,
                     "production_moves": args.production,
                     "sample_every": args.every,

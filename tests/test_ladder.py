@@ -155,3 +155,30 @@ def test_ladder_rejects_mixed_temperatures():
     states = _states()[:1] + _states(temperature=310.0)[:1]
     with pytest.raises(InputError, match="same temperature"):
         L.simulate_ladder(_ideal_model(), states, FAST, seed=1)
+
+
+def test_both_replica_ladders_sample_each_rung_with_one_insertion_method(engine):
+    """Automatic insertion method on an exchange ladder with two replicas (the second
+    over-filled): each rung's replicas sample with one method, decided per rung from both
+    (gcmc.sampling.point.shared_insertion_trials). Methane-like LJ (148 K, 0.373 nm) in a 1 nm
+    slit at 298 K from a few molecules to a filled pore, so that the rule picks plain
+    insertion at the bottom of the ladder and biased insertion at the top."""
+    from gcmc.physics.model import default_solid
+
+    probe = Probe(name="lj-methane", epsilon_k=148.0, sigma_nm=0.373)
+    model = PoreModel(
+        probe=probe,
+        solid=default_solid(),
+        geometry=SLIT,
+        cutoff_nm=3.0 * probe.sigma_nm,
+        box_nm=3.0,
+        width_nm=1.0,
+    )
+    s = SamplingSettings(
+        replicas=2, equilibration_moves=8_000, production_moves=4_000, sample_every=50
+    )
+    states = [ThermoState(temperature_K=298.15, fugacity_Pa=f) for f in (1.0e4, 1.0e7)]
+    out = L.simulate_ladder(model, states, s, seed=4)
+    ks = [p.result.replica_insertion_trials for p in out.points]
+    assert all(len(k) == 2 and len(set(k)) == 1 for k in ks), ks
+    assert ks[0][0] == 1 and ks[-1][0] == s.biased_trials, ks
