@@ -237,17 +237,36 @@ class _Ladder:
     def rounds_for(self, moves: int) -> int:
         return max(1, math.ceil(moves / self.round_moves))
 
-    def equilibrate(self, moves: int, z_scale: float = 1.0, measure: bool = False) -> None:
-        """``moves`` per box in rounds with swaps and step-size adaptation; ``measure``: count
-        the insertions of the second half of these rounds per rung."""
+    def equilibrate(
+        self,
+        moves: int,
+        z_scale: float = 1.0,
+        measure: bool = False,
+        start: int = 0,
+        stop: int | None = None,
+    ) -> None:
+        """Rounds ``start`` to ``stop`` (default: all) of an equilibration of ``moves`` moves
+        per box, with swaps and step-size adaptation (a run split at an adaptation boundary
+        makes the same moves as an unsplit one); ``measure``: count the insertions of the
+        rounds from the middle of 0 to ``stop`` on, per rung."""
         if moves <= 0:
             return
         n_rounds = self.rounds_for(moves)
-        per_adapt = max(1, n_rounds // 20)
-        for r in range(n_rounds):
+        stop = n_rounds if stop is None else min(stop, n_rounds)
+        per_adapt = self.rounds_per_adapt(moves)
+        for r in range(start, stop):
             self.run_round(z_scale)
             if (r + 1) % per_adapt == 0:
-                self.adapt(measure=(measure and z_scale == 1.0 and r >= n_rounds // 2))
+                self.adapt(measure=(measure and z_scale == 1.0 and r >= stop // 2))
+
+    def rounds_per_adapt(self, moves: int) -> int:
+        return max(1, self.rounds_for(moves) // 20)
+
+    def half_round(self, moves: int) -> int:
+        """The first adaptation boundary at or past the middle of an equilibration."""
+        n_rounds = self.rounds_for(moves)
+        per = self.rounds_per_adapt(moves)
+        return min(n_rounds, -(-(n_rounds // 2) // per) * per)
 
     def produce(self) -> None:
         s = self.settings
@@ -364,14 +383,15 @@ def simulate_ladder(
     ladders = []
     t_start = time.perf_counter()
     eq = settings.equilibration_moves
-    first = eq // 2
+    first = 0
     for r, stream in enumerate(ss.spawn(settings.replicas)):
         lad = _Ladder(
             model, sorted_states, settings, stream, sorted_starts, max_displacement_nm, m, capacity
         )
         if r == 1:
             lad.equilibrate(eq // 2, z_scale=settings.overfill_factor)
-        lad.equilibrate(first, measure=True)
+        first = lad.half_round(eq)
+        lad.equilibrate(eq, measure=True, stop=first)
         ladders.append(lad)
     # one insertion method per rung for every replica of it (the point sampler's rule)
     for k in range(len(sorted_states)):
@@ -384,7 +404,7 @@ def simulate_ladder(
         for lad in ladders:
             lad.rungs[k].k_trials = k_trials
     for lad in ladders:
-        lad.equilibrate(eq - first)
+        lad.equilibrate(eq, start=first)
         lad.produce()
     runs = [lad.replica_runs() for lad in ladders]
     attempts = sum(lad.attempts for lad in ladders)

@@ -191,6 +191,18 @@ def _replicas_agree(
     )
 
 
+def _chunk(moves: int) -> int:
+    """Moves between step-size adaptations of an equilibration of ``moves`` moves."""
+    return max(1, moves // 20)
+
+
+def _half_point(moves: int) -> int:
+    """Where an equilibration of ``moves`` moves is split for the shared insertion-method
+    decision: the first adaptation boundary at or past its middle."""
+    per = _chunk(moves)
+    return min(moves, -(-(moves // 2) // per) * per)
+
+
 def _equilibrate(
     box: Box,
     moves: int,
@@ -198,33 +210,38 @@ def _equilibrate(
     progress: Progress | None,
     clock: list[float],
     auto_bias: bool = False,
+    start: int = 0,
+    stop: int | None = None,
 ) -> tuple[int, int]:
-    """Run ``moves`` moves with step-size adaptation (equilibration only). Returns the
-    insertion attempts and acceptances of the second half of these moves (the window the
-    shared insertion-method rule reads, see :func:`shared_insertion_trials`).
+    """Run the moves ``start`` to ``stop`` (default: all) of an equilibration of ``moves``
+    moves, with step-size adaptation every ``_chunk(moves)`` moves (equilibration only; a run
+    split at an adaptation boundary makes the same moves as one unsplit run). Returns the
+    insertion attempts and acceptances of the chunks that start in the second half of the
+    moves from 0 to ``stop`` (the window the shared insertion-method rule reads, see
+    :func:`shared_insertion_trials`).
 
     ``auto_bias``: switch this box to biased insertion in the second half when plain insertion
     is accepted less than ``bias_threshold`` per attempt. Only the over-filled replica's
     preparation at a multiple of the activity uses it (any method that fills the pore will
     do there); the method the replicas sample with is decided for both of them at once."""
     tries = accepts = 0
-    if moves <= 0:
+    stop = moves if stop is None else min(stop, moves)
+    if stop <= start:
         return tries, accepts
-    chunks = 20
-    per = max(1, moves // chunks)
-    done = 0
+    per = _chunk(moves)
+    done = start
     sig = box.model.probe.sigma_nm
     lmax = 0.5 * min(box.model.box_lengths_nm)
     auto_bias = auto_bias and settings.insertion_trials == 0
-    while done < moves:
-        step = min(per, moves - done)
+    while done < stop:
+        step = min(per, stop - done)
         box.reset_counters()
         t = time.perf_counter()
         box.run(step)
         clock[0] += time.perf_counter() - t
-        second_half = done >= moves // 2
+        in_window = done >= stop // 2
         done += step
-        if second_half:
+        if in_window:
             tries += int(box.counters[C_INS_TRY])
             accepts += int(box.counters[C_INS_ACC])
         acc = box.acceptance()
@@ -312,21 +329,20 @@ class _Replica:
             box.set_insertion_trials(max(1, settings.insertion_trials))
         # first half of the equilibration at the point's activity, with the configured method
         # (plain when automatic); its second half is the measurement window of the shared rule
-        first = eq // 2
+        # (with a configured method, the split run makes the same moves as an unsplit one)
+        self.first = _half_point(eq)
         self.insertion_tries, self.insertion_accepts = _equilibrate(
-            box, first, settings, progress, self.clock
+            box, eq, settings, progress, self.clock, stop=self.first
         )
-        self.moves += first
-        self.rest = eq - first
-        self.settled = False
+        self.moves += self.first
 
     def settle(self, k_trials: int) -> None:
         """Adopt the point's insertion method and run the rest of the equilibration."""
         settings, box = self.settings, self.box
+        eq = settings.equilibration_moves
         box.set_insertion_trials(k_trials)
-        _equilibrate(box, self.rest, settings, self.progress, self.clock)
-        self.moves += self.rest
-        self.settled = True
+        _equilibrate(box, eq, settings, self.progress, self.clock, start=self.first)
+        self.moves += eq - self.first
         # production: room for the whole move budget when stopping on a target
         every = settings.sample_every
         budget = max(settings.production_moves, settings.max_production_moves)
