@@ -121,6 +121,55 @@ def summary(z: np.ndarray) -> dict[str, float]:
     }
 
 
+def _seed_chi2(rows: list[dict], replica: int) -> float:
+    """chi^2 per degree of freedom of one replica's means across seeds at each (H, p), with its
+    reported errors: about 1 when the errors state the seed-to-seed scatter."""
+    groups: dict[tuple[float, float], list[dict]] = {}
+    for r in rows:
+        groups.setdefault((r["width_nm"], r["pressure_Pa"]), []).append(r)
+    chi2 = 0.0
+    dof = 0
+    for rr in groups.values():
+        m = np.array([r["means"][replica] for r in rr])
+        e = np.array([r["stderrs"][replica] for r in rr])
+        if len(m) < 2 or np.any(~(e > 0)):
+            continue
+        w = 1.0 / e**2
+        mu = float(np.sum(w * m) / np.sum(w))
+        chi2 += float(np.sum(w * (m - mu) ** 2))
+        dof += len(m) - 1
+    return chi2 / dof if dof else math.nan
+
+
+def _lag1(rows: list[dict]) -> float:
+    """Correlation of z between neighbouring pressures of one ladder (the warm start chains
+    them: a carried-over disturbance would correlate them)."""
+    ladders: dict[tuple[int, float], list[tuple[float, float]]] = {}
+    for r in rows:
+        ladders.setdefault((r["seed"], r["width_nm"]), []).append((r["pressure_Pa"], r["z"]))
+    a: list[float] = []
+    b: list[float] = []
+    for v in ladders.values():
+        z = [x[1] for x in sorted(v)]
+        a += z[:-1]
+        b += z[1:]
+    return float(np.corrcoef(a, b)[0, 1]) if len(a) > 2 else math.nan
+
+
+def _diagnostics(named: dict[str, list[dict]]) -> str:
+    lines = [
+        "| run | seed-to-seed chi2/dof, replica from below | same, over-filled replica | "
+        "lag-1 correlation of z along a ladder |",
+        "|---|---|---|---|",
+    ]
+    for name, rows in named.items():
+        lines.append(
+            f"| {name} | {_seed_chi2(rows, 0):.2f} | {_seed_chi2(rows, 1):.2f} | "
+            f"{_lag1(rows):+.3f} |"
+        )
+    return "\n".join(lines)
+
+
 def _table(named: dict[str, list[dict]]) -> str:
     lines = [
         "| run | subset | points | mean z | sd z | beyond 3 | KS p vs N(0,1) |",
@@ -131,6 +180,11 @@ def _table(named: dict[str, list[dict]]) -> str:
             "all": rows,
             "same insertion method": [r for r in rows if len(set(r["k_trials"])) == 1],
             "different methods": [r for r in rows if len(set(r["k_trials"])) > 1],
+            "equilibration cut in neither replica": [r for r in rows if max(r["cut_samples"]) == 0],
+            "cut in the replica from below (warm start)": [
+                r for r in rows if r["cut_samples"][0] > 0
+            ],
+            "cut in the over-filled replica": [r for r in rows if r["cut_samples"][1] > 0],
         }
         for sub, rr in subsets.items():
             if not rr:
@@ -163,6 +217,8 @@ def main() -> None:
             rec = json.loads(p.read_text())
             named.setdefault(rec["label"], []).extend(rec["points"])
         print(_table(named))
+        print()
+        print(_diagnostics(named))
         return
     t0 = time.perf_counter()
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
