@@ -18,26 +18,10 @@ from typing import Any
 
 import numpy as np
 
-#: Quantities stored per simulated point, with their units. Keys are dataset names.
-POINT_FIELDS: dict[str, str] = {
-    "density_per_nm3": "nm^-3",  # absolute density per pore volume A*w
-    "density_per_nm3_stderr": "nm^-3",
-    "excess_density_per_nm3": "nm^-3",
-    "molecules_mean": "1",
-    "molecules_stderr": "1",
-    "isosteric_heat_kJ_per_mol": "kJ/mol",
-    "isosteric_heat_kJ_per_mol_stderr": "kJ/mol",
-    "fluid_fluid_energy_kJ_per_mol": "kJ/mol",
-    "fluid_solid_energy_kJ_per_mol": "kJ/mol",
-    "statistical_inefficiency": "samples",
-    "drift_z": "1",
-    "replica_agreement_z": "1",
-    "insertion_acceptance": "1",
-    "insertion_trials": "1",
-    "moves": "1",
-    "seconds": "s",
-    "converged": "bool",
-}
+from gcmc.kernel.schema import POINT_FIELDS as _POINT_FIELDS
+
+#: Quantities stored per simulated point, with their units (from the schema table).
+POINT_FIELDS: dict[str, str] = dict(_POINT_FIELDS)
 
 
 @dataclass
