@@ -7,14 +7,13 @@ import argparse
 import csv
 import io
 import json
-import os
-import tempfile
 from collections import Counter
 from pathlib import Path
 
 import numpy as np
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_write
 
 SHOW_HELP = """Verify a kernel file (schema version and checksums) and print a summary: model,
 equation of state, axes, simulated points and their flags, fitted forms and provenance."""
@@ -342,18 +341,11 @@ def _write_atomic(path: Path, write, force: bool) -> None:  # noqa: ANN001
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise InputError(f"--output: folder {folder} does not exist")
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    tmp = Path(tmp_name)
     try:
-        with os.fdopen(fd, "wb") as fh:
+        with atomic_write(path, "wb") as fh:
             write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
     except OSError as exc:
         raise InputError(f"--output: cannot write {path} ({exc})") from None
-    finally:
-        tmp.unlink(missing_ok=True)
 
 
 def run_export(args: argparse.Namespace) -> int:

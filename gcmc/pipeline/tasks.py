@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_write, atomic_write_text
 from gcmc.kernel.data import POINT_FIELDS
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.pipeline.config import RunConfig
@@ -252,16 +253,8 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
 
 def _atomic_savez(path: Path, arrays: dict[str, np.ndarray]) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    with atomic_write(path, "wb") as fh:
+        np.savez(fh, **arrays)
 
 
 def load_task(path: Path) -> tuple[dict[str, np.ndarray], dict]:
@@ -287,9 +280,7 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
         record = {"task": task.key, "error": msg, "traceback": traceback.format_exc()}
         fail = failure_path(plan, task)
         fail.parent.mkdir(parents=True, exist_ok=True)
-        tmp = fail.with_name(f".{fail.name}.{os.getpid()}.tmp")
-        tmp.write_text(json.dumps(record, indent=1))
-        os.replace(tmp, fail)
+        atomic_write_text(fail, json.dumps(record, indent=1))
         return "failed", time.perf_counter() - t0, msg
 
 

@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import json
 import os
-import tempfile
 import warnings
 from pathlib import Path
 
@@ -33,6 +32,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_path, atomic_write
 from gcmc.kernel.reader import Kernel
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.quality.criteria import CheckReport, RoundTrip
@@ -48,19 +48,6 @@ def _figure(width: float, height: float) -> Figure:
     return fig
 
 
-def _default_mode() -> int:
-    """0o666 less the process umask: the mode an ordinary open() would give a new file
-    (mkstemp makes its files private)."""
-    mask = os.umask(0)
-    os.umask(mask)
-    return 0o666 & ~mask
-
-
-def _publish(tmp: str, final: Path) -> None:
-    os.chmod(tmp, _default_mode())
-    os.replace(tmp, final)
-
-
 def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
     """Lay the figure out once (tight layout) and write it as PNG and PDF."""
     with warnings.catch_warnings():
@@ -69,14 +56,8 @@ def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
     out = []
     for fmt in FORMATS:
         final = folder / f"{stem}.{fmt}"
-        fd, tmp = tempfile.mkstemp(prefix=f".{stem}.", suffix=f".{fmt}.tmp", dir=folder)
-        os.close(fd)
-        try:
+        with atomic_path(final) as tmp:
             fig.savefig(tmp, format=fmt, dpi=150)
-            _publish(tmp, final)
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
         out.append(final)
     return out
 
@@ -302,14 +283,8 @@ def write_report(report: CheckReport, kernel: Kernel, folder: str | Path) -> lis
     if temps:
         out += _save(overview_figure(report, kernel, temps[0]), folder, "overview")
     final = folder / "check.json"
-    fd, tmp = tempfile.mkstemp(prefix=".check.", suffix=".json.tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w") as fh:
-            json.dump(report.to_dict(), fh, indent=1)
-        _publish(tmp, final)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(final, "w") as fh:
+        json.dump(report.to_dict(), fh, indent=1)
     out.append(final)
     return out
 
