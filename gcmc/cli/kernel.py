@@ -14,6 +14,7 @@ import numpy as np
 
 from gcmc.errors import InputError
 from gcmc.files import atomic_write
+from gcmc.kernel.flags import count_kinds
 
 SHOW_HELP = """Verify a kernel file (schema version and checksums) and print a summary: model,
 equation of state, axes, simulated points and their flags, fitted forms and provenance."""
@@ -70,18 +71,8 @@ def _dict_line(d: dict) -> str:
 
 
 def _flag_tokens(flags: np.ndarray) -> Counter:
-    """Count flag kinds: a point's flags are joined by "; "; a flag's kind is the text before
-    its first ":" without an index suffix such as "[0]" (e.g. "error_unreliable[0]: no
-    plateau ..." counts as "error_unreliable")."""
-    counts: Counter = Counter()
-    for item in np.asarray(flags).ravel():
-        for flag in str(item).split(";"):
-            kind = flag.split(":", 1)[0].strip()
-            if "[" in kind:
-                kind = kind[: kind.index("[")]
-            if kind:
-                counts[kind] += 1
-    return counts
+    """Count flag kinds over an array of points' flags (gcmc.kernel.flags.count_kinds)."""
+    return count_kinds(np.asarray(flags).ravel())
 
 
 def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel

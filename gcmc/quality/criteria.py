@@ -87,6 +87,7 @@ import numpy as np
 from scipy import stats
 
 from gcmc.errors import InputError
+from gcmc.kernel import flags as fl
 from gcmc.kernel import forms as _forms
 from gcmc.kernel.data import KernelData
 from gcmc.kernel.reader import Kernel
@@ -478,7 +479,7 @@ def check_flags(kernel: Kernel, ts: list[int]) -> Criterion:
             for j in np.flatnonzero(data.accessible[t]):
                 for k in np.flatnonzero(np.isfinite(n[t, j])):
                     text = str(flags[t, j, k]) if flags is not None else ""
-                    items = [f for f in text.split("; ") if f and f != "inaccessible"]
+                    items = fl.without(text, fl.INACCESSIBLE)
                     where = f"{branch}: {_where(data, t, j, k)}"
                     if conv[t, j, k] == 0:
                         unconverged.append(f"{where}: {'; '.join(items) or 'not converged'}")

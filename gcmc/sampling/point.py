@@ -17,6 +17,7 @@ from typing import Any
 
 import numpy as np
 
+from gcmc.kernel import flags as fl
 from gcmc.physics.henry import pore_limit
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.physics.units import activity_per_nm3, kelvin_to_kj_per_mol, per_nm3_to_mmol_per_cm3
@@ -412,7 +413,7 @@ def _blocked_result(model: PoreModel, state: ThermoState) -> PointOutcome:
         moves=0,
         seconds=0.0,
         converged=True,
-        flags=["inaccessible"],
+        flags=[fl.flag_text(fl.INACCESSIBLE)],
         pore_volume_nm3=model.pore_volume_nm3,
     )
     return PointOutcome(
@@ -467,37 +468,40 @@ def _analyse(
     errs = [e.stderr for e in ests]
     for i, e in enumerate(ests):
         if not e.reliable:
-            flags.append(f"error_unreliable[{i}]: {e.reason}")
+            flags.append(fl.flag_text(fl.ERROR_UNRELIABLE, i, e.reason))
     drift = [st.drift_test(r.n.astype(float)) if len(r.n) >= 40 else None for r in runs]
     dz = 0.0
     for i, d in enumerate(drift):
         if d is None:
-            flags.append(f"too_few_samples[{i}]")
+            flags.append(fl.flag_text(fl.TOO_FEW_SAMPLES, i))
         else:
             dz = max(dz, abs(d.z_score)) if math.isfinite(d.z_score) else dz
             if not d.passed:
-                flags.append(f"drift[{i}]: first vs second half z = {d.z_score:.1f}")
+                flags.append(fl.flag_text(fl.DRIFT, i, f"first vs second half z = {d.z_score:.1f}"))
     agree_z = 0.0
     if len(runs) >= 2:
         agree_z, ok = _replicas_agree(settings, means[0], errs[0], means[1], errs[1])
         if not ok:
-            flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
+            detail = f"{means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})"
+            flags.append(fl.flag_text(fl.REPLICAS_DISAGREE, detail=detail))
     for i, r in enumerate(runs):
         if _too_few_exchanges(r.exchanges, means[i]):
-            flags.append(
-                f"few_exchanges[{i}]: {r.exchanges} accepted insertions + deletions in "
-                f"production for N = {means[i]:.4g}"
+            detail = (
+                f"{r.exchanges} accepted insertions + deletions in production for "
+                f"N = {means[i]:.4g}"
             )
+            flags.append(fl.flag_text(fl.FEW_EXCHANGES, i, detail))
     below = means[0] * (1.0 - settings.agreement_rel)
     if len(runs) >= 2 and means[0] >= 1.0 and 0 <= runs[1].start_n < below:
         # the two-sided check needs the second replica to come from above, or at least from
         # no further below than the replicas' agreement tolerance (a nearly incompressible,
         # filled pore barely takes more molecules at 20 z); below one molecule on average the
         # replicas mix at once and the over-fill may land on N = 0 by chance
-        flags.append(
-            f"not_bracketed: the over-filled replica started at N = {runs[1].start_n}, below "
-            f"the first replica's mean {means[0]:.4g}"
+        detail = (
+            f"the over-filled replica started at N = {runs[1].start_n}, below the first "
+            f"replica's mean {means[0]:.4g}"
         )
+        flags.append(fl.flag_text(fl.NOT_BRACKETED, detail=detail))
     # Pool the replicas (inverse-variance weights where errors are available).
     w = np.array([1.0 / e**2 if e > 0 else 0.0 for e in errs])
     if w.sum() > 0 and all(e > 0 for e in errs):
@@ -506,7 +510,7 @@ def _analyse(
     else:
         n_mean = float(np.mean(means))
         n_err = float(max(errs)) if errs else float("nan")
-    if len(runs) >= 2 and "replicas_disagree" in " ".join(flags):
+    if len(runs) >= 2 and fl.has_flag(flags, fl.REPLICAS_DISAGREE):
         n_err = max(n_err, 0.5 * abs(means[0] - means[1]))  # an honest spread
     n_all = np.concatenate([r.n for r in runs]).astype(float)
     u_all = np.concatenate([r.uff + r.usf for r in runs])
@@ -528,22 +532,18 @@ def _analyse(
     density_err = n_err / vol if vol > 0 else float("nan")
     bulk = state.bulk_density_per_nm3
     excess = density - bulk if math.isfinite(bulk) else float("nan")
-    converged = not any(
-        f.startswith(
-            ("drift", "replicas_disagree", "error_unreliable", "too_few", "not_bracketed", "few_ex")
-        )
-        for f in flags
-    )
+    converged = not fl.makes_unconverged(flags)
     if (
         settings.target_rel_stderr > 0
         and n_mean > 0
         and n_err / n_mean > settings.target_rel_stderr
     ):
-        flags.append(
-            f"target_not_reached: rel. error {n_err / n_mean:.2g} > "
-            f"{settings.target_rel_stderr:.2g} within the move budget"
+        detail = (
+            f"rel. error {n_err / n_mean:.2g} > {settings.target_rel_stderr:.2g} within the "
+            "move budget"
         )
-        converged = False
+        flags.append(fl.flag_text(fl.TARGET_NOT_REACHED, detail=detail))
+        converged = not fl.makes_unconverged(flags)
     r0 = runs[0]
     result = PointResult(
         temperature_K=state.temperature_K,
