@@ -75,20 +75,7 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
             n = points["adsorption"]["density_per_nm3"][ti, wi]
             e = points["adsorption"]["density_per_nm3_stderr"][ti, wi]
             res = fit_isotherm(p, n, e, forms=cfg.fit.forms, p_value_min=cfg.fit.p_value_min)
-            row.append(
-                FitRecord(
-                    form=res.form,
-                    parameters=np.asarray(res.parameters, float),
-                    covariance=np.asarray(res.covariance, float),
-                    chi2=res.chi2,
-                    dof=res.dof,
-                    reduced_chi2=res.reduced_chi2,
-                    p_value=res.p_value,
-                    aicc=res.aicc,
-                    residuals=np.asarray(res.residuals, float),
-                    accepted=res.accepted,
-                )
-            )
+            row.append(res.record())
             summaries.append(FitSummary(ti, wi, res.form, res.reduced_chi2, res.accepted))
             kh = henry[ti, wi] if res.form != "zero" else 0.0
             dense_n[ti, wi] = evaluate_fit(
