@@ -177,7 +177,7 @@ def test_running_energy_equals_recomputation_after_long_run(case: str) -> None:
     equal both the engine's own full recomputation and the independent numpy one to 1e-9."""
     box = CASES[case]()
     # 1e6 moves (plain) or 3.2e5 moves (k = 8: each insertion/deletion costs ~8 trials)
-    chunks, per = 8, (125_000 if box.ip[E.I_KTRIALS] == 1 else 40_000)
+    chunks, per = 8, (125_000 if box.insertion_trials == 1 else 40_000)
     for _ in range(chunks):
         box.run(per)
         run_ff, run_sf = box.energy

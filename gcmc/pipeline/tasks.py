@@ -24,6 +24,7 @@ from gcmc.errors import InputError
 from gcmc.files import atomic_write, atomic_write_text
 from gcmc.kernel.data import POINT_FIELDS
 from gcmc.physics.model import SLIT, PoreModel
+from gcmc.pipeline import faults
 from gcmc.pipeline.config import RunConfig
 
 BRANCHES = ("adsorption", "desorption")
@@ -157,11 +158,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     from gcmc.physics.henry import pore_limit
     from gcmc.sampling.point import ThermoState, simulate_point
 
-    # Test hook (used by tests/test_build_resume.py): GCMC_FAIL_TASK=t000_w002[,...] makes
-    # these tasks fail, to exercise failure reporting and retry on rerun. Unset in real builds.
-    fail_keys = os.environ.get("GCMC_FAIL_TASK", "")
-    if task.key in fail_keys.split(","):
-        raise RuntimeError(f"failed on purpose (test hook GCMC_FAIL_TASK={fail_keys})")
+    faults.check_task(task.key)  # the test seam (gcmc.pipeline.faults); nothing in real builds
     cfg = plan.config
     tp = plan.temperatures[task.t_index]
     model = pore_model(cfg, task.w_index)

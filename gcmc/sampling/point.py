@@ -23,7 +23,6 @@ from gcmc.physics.model import SLIT, PoreModel
 from gcmc.physics.units import activity_per_nm3, kelvin_to_kj_per_mol, per_nm3_to_mmol_per_cm3
 from gcmc.sampling import statistics as st
 from gcmc.sampling.box import Box, EngineOptions
-from gcmc.sampling.engine import C_DEL_ACC, C_INS_ACC
 from gcmc.sampling.rng import seed_state
 
 
@@ -165,6 +164,33 @@ class _ReplicaRun:
 
 Progress = Callable[[int], None]
 
+# ---- the numbers of the stopping rules (shared with gcmc.sampling.ladder) -----------------
+#: Equilibration and production run in this many chunks: step sizes adapt after each
+#: equilibration chunk, and a target relative error is judged after each production chunk.
+CHUNKS = 20
+#: Samples of N a replica needs before its target relative error is judged (block averaging
+#: needs several blocks of a few samples each).
+MIN_SAMPLES_TARGET = 64
+#: Samples of N needed for the equilibration cut (Chodera 2016) and the drift test (two
+#: halves of the production); below it the point is flagged too_few_samples.
+MIN_SAMPLES_DRIFT = 40
+#: Samples of N (all replicas) needed for the isosteric heat from the fluctuation ratio.
+MIN_SAMPLES_HEAT = 64
+#: Step-size adaptation in equilibration: the displacement acceptance aimed at, the range
+#: of one update factor, and the smallest step (in probe sigma). The largest step is half
+#: the shortest box edge.
+DISPLACEMENT_ACCEPTANCE = 0.4
+STEP_FACTOR_RANGE = (0.5, 1.5)
+MIN_STEP_SIGMA = 0.01
+
+
+def adapted_step(step_nm: float, acceptance: float, sigma_nm: float, max_nm: float) -> float:
+    """The next maximum displacement from the last chunk's displacement acceptance."""
+    lo, hi = STEP_FACTOR_RANGE
+    factor = np.clip(acceptance / DISPLACEMENT_ACCEPTANCE, lo, hi)
+    return float(np.clip(step_nm * factor, MIN_STEP_SIGMA * sigma_nm, max_nm))
+
+
 #: A replica must accept at least this many insertions + deletions in production (and at
 #: least as many as the molecules it holds) for its mean N to count as sampled.
 MIN_EXCHANGES = 20
@@ -195,8 +221,7 @@ def _equilibrate(
     """Run ``moves`` moves with step-size adaptation (equilibration only)."""
     if moves <= 0:
         return
-    chunks = 20
-    per = max(1, moves // chunks)
+    per = max(1, moves // CHUNKS)
     done = 0
     sig = box.model.probe.sigma_nm
     lmax = 0.5 * min(box.model.box_lengths_nm)
@@ -211,10 +236,8 @@ def _equilibrate(
         acc = box.acceptance()
         a = acc["displacement"]
         if math.isfinite(a):
-            box.max_displacement_nm = float(
-                np.clip(box.max_displacement_nm * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, lmax)
-            )
-        if auto_bias and done >= moves // 2 and box.ip[5] == 1:
+            box.max_displacement_nm = adapted_step(box.max_displacement_nm, a, sig, lmax)
+        if auto_bias and done >= moves // 2 and box.insertion_trials == 1:
             ins = acc["insertion"]
             if math.isfinite(ins) and ins < settings.bias_threshold and box.n_molecules > 0:
                 box.set_insertion_trials(settings.biased_trials)
@@ -275,7 +298,7 @@ class _Replica:
         self.profile = np.zeros(box.n_bins)
         self.written = 0
         self.produced = 0  # production moves
-        self.chunk = max(every, (settings.production_moves // 20) // every * every)
+        self.chunk = max(every, (settings.production_moves // CHUNKS) // every * every)
         box.reset_counters()
 
     @property
@@ -304,18 +327,18 @@ class _Replica:
     @property
     def exchanges(self) -> int:
         """Accepted insertions + deletions so far in production."""
-        return int(self.box.counters[C_INS_ACC] + self.box.counters[C_DEL_ACC])
+        return self.box.exchanges
 
     def meets_target(self) -> tuple[bool, float, float]:
         """(done, mean, stderr) of N so far: the target relative error is met, the drift test
         passes and the content was renewed through the reservoir (an empty pore is done)."""
-        if self.produced < self.settings.production_moves or self.written < 64:
+        if self.produced < self.settings.production_moves or self.written < MIN_SAMPLES_TARGET:
             return False, math.nan, math.nan
         x = self.out_n[: self.written].astype(float)
         if x.max() == 0.0:
             return True, 0.0, 0.0  # nothing entered: nothing to converge
         x = x[_equilibration_cut(x) :]  # judged as the point will be (see finish)
-        if len(x) < 64:
+        if len(x) < MIN_SAMPLES_TARGET:
             return False, math.nan, math.nan
         est = st.block_average(x)
         mean, err = est.mean, est.stderr
@@ -342,7 +365,7 @@ class _Replica:
             moves=self.moves + self.produced,
             seconds=self.clock[0],
             t0=t0,
-            k_trials=int(self.box.ip[5]),
+            k_trials=self.box.insertion_trials,
             acceptance=self.box.acceptance(),
             start_n=self.start_n,
             exchanges=self.exchanges,
@@ -352,7 +375,7 @@ class _Replica:
 def _equilibration_cut(n: np.ndarray) -> int:
     """Samples to drop from the start of a production series (Chodera 2016; none if the
     series is short or constant)."""
-    if len(n) >= 40 and np.ptp(n) > 0:
+    if len(n) >= MIN_SAMPLES_DRIFT and np.ptp(n) > 0:
         return int(st.detect_equilibration(np.asarray(n, dtype=float))[0])
     return 0
 
@@ -469,7 +492,9 @@ def _analyse(
     for i, e in enumerate(ests):
         if not e.reliable:
             flags.append(fl.flag_text(fl.ERROR_UNRELIABLE, i, e.reason))
-    drift = [st.drift_test(r.n.astype(float)) if len(r.n) >= 40 else None for r in runs]
+    drift = [
+        st.drift_test(r.n.astype(float)) if len(r.n) >= MIN_SAMPLES_DRIFT else None for r in runs
+    ]
     dz = 0.0
     for i, d in enumerate(drift):
         if d is None:
@@ -521,7 +546,7 @@ def _analyse(
     uff_per = float(uff_all.mean() / eff) if len(uff_all) else float("nan")
     usf_per = float(usf_all.mean() / eff) if len(usf_all) else float("nan")
     q = q_err = float("nan")
-    if len(n_all) > 64 and np.var(n_all) > 0:
+    if len(n_all) > MIN_SAMPLES_HEAT and np.var(n_all) > 0:
         ratio, ratio_err = st.fluctuation_ratio(runs[0].uff + runs[0].usf, runs[0].n.astype(float))
         if math.isfinite(ratio):
             q = kelvin_to_kj_per_mol(state.temperature_K + state.residual_enthalpy_K - ratio)
