@@ -74,7 +74,7 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _print_plan(result) -> None:  # noqa: ANN001
+def _print_plan(result) -> None:
     cfg, plan = result.config, result.plan
     print(
         f"{cfg.name} v{result.version}: {cfg.probe.name}, {len(cfg.temperatures_K)} "
@@ -85,7 +85,7 @@ def _print_plan(result) -> None:  # noqa: ANN001
     )
 
 
-def _print_incomplete(result) -> None:  # noqa: ANN001
+def _print_incomplete(result) -> None:
     from gcmc.pipeline.build import failure_line
 
     plan, missing = result.plan, result.missing
@@ -101,7 +101,7 @@ def _print_incomplete(result) -> None:  # noqa: ANN001
         print(f"  {failure_line(plan, t)}", file=sys.stderr)
 
 
-def _summary(result) -> None:  # noqa: ANN001
+def _summary(result) -> None:
     from gcmc.cli.kernel import _flag_tokens
 
     plan, data, fits, report = result.plan, result.data, result.fits, result.report

@@ -9,12 +9,16 @@ import io
 import json
 from collections import Counter
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from gcmc.errors import InputError
 from gcmc.files import atomic_write
 from gcmc.kernel.flags import count_kinds
+
+if TYPE_CHECKING:
+    from gcmc.kernel.reader import Kernel
 
 SHOW_HELP = """Verify a kernel file (schema version and checksums) and print a summary: model,
 equation of state, axes, simulated points and their flags, fitted forms and provenance."""
@@ -75,7 +79,7 @@ def _flag_tokens(flags: np.ndarray) -> Counter:
     return count_kinds(np.asarray(flags).ravel())
 
 
-def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
+def summary(kernel: Kernel) -> str:
     """The text printed by `gcmc show`."""
     d = kernel.data
     info = kernel.info
@@ -196,7 +200,7 @@ def _num(x: float) -> str:
     return repr(float(x))
 
 
-def csv_text(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
+def csv_text(kernel: Kernel) -> str:
     """The long-format CSV of `gcmc export --format csv`: one row per grid point of the
     adsorption branch (finite pressure) and per simulated point of the other branches."""
     from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
@@ -240,7 +244,7 @@ def csv_text(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
     return buf.getvalue()
 
 
-def npz_arrays(kernel) -> dict[str, np.ndarray]:  # noqa: ANN001 - a gcmc.reader.Kernel
+def npz_arrays(kernel: Kernel) -> dict[str, np.ndarray]:
     """The arrays of `gcmc export --format npz` (names documented in kernels/README.md)."""
     d = kernel.data
     out: dict[str, np.ndarray] = {}
@@ -324,7 +328,7 @@ def _json_default(o: object) -> object:
     return str(o)
 
 
-def _write_atomic(path: Path, write, force: bool) -> None:  # noqa: ANN001
+def _write_atomic(path: Path, write, force: bool) -> None:
     if path.exists() and not force:
         raise InputError(f"--output: {path} exists (use --force to replace it)")
     if path.is_dir():

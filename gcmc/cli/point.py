@@ -214,7 +214,7 @@ def _json_default(o: object) -> object:
         return str(o)
 
 
-def _print_summary(model, r, eos_name: str, compile_s: float) -> None:  # noqa: ANN001
+def _print_summary(model, r, eos_name: str, compile_s: float) -> None:
     geo = (
         f"slit pore H = {model.width_nm:g} nm (w = {model.internal_width_nm:.3f} nm)"
         if model.geometry == "slit"

@@ -30,7 +30,7 @@ def _library_versions() -> dict[str, str]:
         try:
             m = __import__(mod)
             out[mod] = str(getattr(m, "__version__", "unknown"))
-        except Exception:  # noqa: BLE001
+        except Exception:
             out[mod] = "not installed"
     return out
 

@@ -148,7 +148,7 @@ def _points_per_task(plan: BuildPlan) -> int:
     return len(plan.config.pressures.values) * (2 if plan.config.pressures.descending else 1)
 
 
-def start_local_pool(workers: int):  # noqa: ANN201
+def start_local_pool(workers: int):
     """A process pool of ``workers`` spawned workers, started now: each imports the package
     and loads the compiled engine while the parent goes on (the EOS states of the plan take
     it about as long), instead of after the plan is ready."""
@@ -165,7 +165,7 @@ def start_local_pool(workers: int):  # noqa: ANN201
     return pool
 
 
-def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None) -> RunReport:  # noqa: ANN001
+def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None) -> RunReport:
     """Run the pending tasks in this process (workers == 1) or a process pool (``pool``, or
     one started here)."""
     report = RunReport()
@@ -205,7 +205,7 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None
     return report
 
 
-def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: ANN001
+def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:
     """All ranks take tasks from a shared atomic counter; rank 0 shows progress by watching
     the task files appear (every finished task is on disk before it is counted)."""
     from mpi4py import MPI
@@ -283,7 +283,7 @@ def load_plan(config_path: str | Path) -> BuildPlan:
     return make_plan(load_config(config_path))
 
 
-def progress_bar(total: int, initial: int, enabled: bool):  # noqa: ANN201
+def progress_bar(total: int, initial: int, enabled: bool):
     from tqdm import tqdm
 
     return tqdm(

@@ -267,7 +267,7 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
     try:
         run_task(plan, task)
         return "done", time.perf_counter() - t0, ""
-    except Exception as exc:  # noqa: BLE001 - a failed task must not take the others down
+    except Exception as exc:  # a failed task must not take the others down
         tp = plan.temperatures[task.t_index]
         msg = (
             f"task {task.key} (T = {tp.temperature_K:g} K, H = "
@@ -321,7 +321,7 @@ def learned_order(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
             try:
                 arrays, _ = load_task(p)
                 measured[(t.t_index, t.w_index)] = float(arrays["seconds"])
-            except Exception:  # noqa: BLE001 - a damaged file is simply re-run
+            except Exception:  # a damaged file is simply re-run
                 p.unlink(missing_ok=True)
     if not measured:
         return tasks

@@ -69,7 +69,7 @@ def _t_suffix(temperature_K: float) -> str:
 # --------------------------------------------------------------------------------------------
 # panels
 # --------------------------------------------------------------------------------------------
-def plot_isotherms(ax, kernel: Kernel, t: int) -> None:  # noqa: ANN001
+def plot_isotherms(ax, kernel: Kernel, t: int) -> None:
     d = kernel.data
     temp = float(d.temperatures_K[t])
     p = np.asarray(d.pressures_Pa[t], float)
@@ -106,7 +106,7 @@ def plot_isotherms(ax, kernel: Kernel, t: int) -> None:  # noqa: ANN001
         sm.set_label("pore width w (nm)")
 
 
-def _scalar_mappable(cmap, norm):  # noqa: ANN001, ANN202
+def _scalar_mappable(cmap, norm):
     from matplotlib.cm import ScalarMappable
 
     sm = ScalarMappable(norm=norm, cmap=cmap)
@@ -114,7 +114,7 @@ def _scalar_mappable(cmap, norm):  # noqa: ANN001, ANN202
     return sm
 
 
-def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:  # noqa: ANN001
+def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:
     d = kernel.data
     p = np.asarray(d.pressures_Pa[t], float)
     pts = d.points["adsorption"]
@@ -158,7 +158,7 @@ def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:  # 
     ax.set_title("relative standard errors of the points", fontsize=9)
 
 
-def plot_resolving_power(ax, res: ResolvingPower) -> None:  # noqa: ANN001
+def plot_resolving_power(ax, res: ResolvingPower) -> None:
     w = res.widths_w_nm
     rho = res.resolution_fraction
     ax.plot(
@@ -203,7 +203,7 @@ def plot_resolving_power(ax, res: ResolvingPower) -> None:  # noqa: ANN001
     ax.legend(fontsize=7, loc="upper left")
 
 
-def plot_singular_values(ax, res: ResolvingPower) -> None:  # noqa: ANN001
+def plot_singular_values(ax, res: ResolvingPower) -> None:
     s = res.singular_values
     k = np.arange(1, s.size + 1)
     ax.semilogy(k, np.where(s > 0, s, np.nan), "o-", ms=3, color="#0969da")
@@ -218,7 +218,7 @@ def plot_singular_values(ax, res: ResolvingPower) -> None:  # noqa: ANN001
     )
 
 
-def plot_round_trip(ax, rt: RoundTrip) -> None:  # noqa: ANN001
+def plot_round_trip(ax, rt: RoundTrip) -> None:
     med, lo, hi = rt.recovered_band()
     ax.fill_between(
         rt.widths_nm, lo, hi, color="#0969da", alpha=0.2, lw=0, label="recovered 16-84 %"

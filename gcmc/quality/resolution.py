@@ -57,11 +57,15 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from gcmc.errors import InputError
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
+
+if TYPE_CHECKING:
+    from gcmc.kernel.reader import Kernel
 
 DEFAULT_RESOLUTION_FRACTION = 0.25
 DEFAULT_CHI2_THRESHOLD = 1.0
@@ -153,7 +157,7 @@ class ResolvingPower:
         )
 
 
-def _label(kernel) -> str:  # noqa: ANN001
+def _label(kernel) -> str:
     path = getattr(kernel, "path", None)
     return str(path) if path is not None else f"kernel {kernel.name!r}"
 
@@ -242,9 +246,9 @@ def _extrapolate_ends(w: np.ndarray, d: np.ndarray) -> np.ndarray:
 
 
 def check_pressures(
-    kernel,
+    kernel: Kernel,
     temperature_K: float,
-    pressures_Pa: np.ndarray | None,  # noqa: ANN001
+    pressures_Pa: np.ndarray | None,
     what: str = "pressures",
 ) -> np.ndarray:
     """The pressures to use at a temperature: the kernel's own by default; given ones must be
@@ -270,7 +274,7 @@ def check_pressures(
 def kernel_relative_errors(
     kernel,
     t: int,
-    columns: np.ndarray,  # noqa: ANN001
+    columns: np.ndarray,
     p: np.ndarray,
 ) -> np.ndarray:
     """Relative standard errors of the kernel's isotherms at pressures p for the given width
@@ -307,7 +311,7 @@ def kernel_relative_errors(
 
 
 def resolving_power(
-    kernel,  # noqa: ANN001  (gcmc.reader.Kernel)
+    kernel,
     temperature_K: float,
     pressures_Pa: np.ndarray | None = None,
     noise: NoiseModel | None = None,
