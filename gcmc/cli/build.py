@@ -17,6 +17,7 @@ command after an interruption and the build continues where it stopped. Under
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``build`` subcommand."""
     p = sub.add_parser(
         "build",
         help="build a kernel from a run config",
@@ -40,6 +41,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``gcmc build``: build (or resume) a kernel and print its summary; the exit code."""
     from gcmc.errors import InputError
     from gcmc.pipeline.build import build_kernel, mpi_rank_and_size
 

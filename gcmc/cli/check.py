@@ -34,6 +34,7 @@ probes)."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``check`` and ``diff`` subcommands."""
     c = sub.add_parser(
         "check",
         help="quality checks of a kernel",
@@ -179,6 +180,7 @@ def read_pressure_file(path: str) -> list[float]:
 
 
 def run_check(args: argparse.Namespace) -> int:
+    """Run ``gcmc check``: judge a kernel, print the verdicts, write the report; the exit code."""
     import numpy as np
 
     from gcmc.kernel.reader import open_kernel
@@ -246,6 +248,7 @@ def run_check(args: argparse.Namespace) -> int:
 
 
 def run_diff(args: argparse.Namespace) -> int:
+    """Run ``gcmc diff``: compare two kernels and print the differences; the exit code."""
     from gcmc.kernel.reader import open_kernel
     from gcmc.quality.diff import diff_kernels, format_diff
 

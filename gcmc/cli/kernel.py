@@ -46,6 +46,7 @@ CSV_COLUMNS = (
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``show`` and ``export`` subcommands."""
     s = sub.add_parser("show", help="summarise a kernel file", description=SHOW_HELP)
     s.add_argument("kernel", metavar="KERNEL", help="a kernel file (<name>.v<version>.h5)")
     s.set_defaults(func=run_show)
@@ -187,6 +188,7 @@ def summary(kernel: Kernel) -> str:
 
 
 def run_show(args: argparse.Namespace) -> int:
+    """Run ``gcmc show``: print a kernel's summary; the exit code."""
     from gcmc.kernel.reader import open_kernel
 
     print(summary(open_kernel(args.kernel)))
@@ -344,6 +346,7 @@ def _write_atomic(path: Path, write, force: bool) -> None:
 
 
 def run_export(args: argparse.Namespace) -> int:
+    """Run ``gcmc export``: write a kernel as CSV or NPZ (atomically); the exit code."""
     from gcmc.kernel.reader import open_kernel
 
     kernel = open_kernel(args.kernel)

@@ -16,6 +16,7 @@ object with --json."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``point`` subcommand."""
     p = sub.add_parser(
         "point",
         help="simulate one state point",
@@ -99,6 +100,7 @@ def _finite(name: str, value: float | None, positive: bool = True) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``gcmc point``: simulate one state point and print (or write) it; the exit code."""
     from gcmc.physics.eos import make_eos
     from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, default_solid, get_probe
     from gcmc.physics.potentials import default_box_nm, default_cutoff_nm

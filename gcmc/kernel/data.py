@@ -81,6 +81,9 @@ class FitRecord:
 
 @dataclass
 class KernelData:
+    """A kernel in memory: what the writer stores and the reader returns (shapes in the module
+    docstring; the file layout in :mod:`gcmc.kernel.schema`)."""
+
     name: str
     version: int
     # model and conventions

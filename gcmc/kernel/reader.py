@@ -414,26 +414,32 @@ class Kernel:
     # ---- identity and axes ----------------------------------------------------------------
     @property
     def name(self) -> str:
+        """Kernel name."""
         return self.data.name
 
     @property
     def version(self) -> int:
+        """Kernel version."""
         return int(self.data.version)
 
     @property
     def schema_version(self) -> str:
+        """Schema version of the file (``major.minor``)."""
         return str(self.info.get("schema_version", SCHEMA_VERSION))
 
     @property
     def temperatures_K(self) -> np.ndarray:
+        """Kernel temperatures (K), a copy."""
         return np.array(self.data.temperatures_K, dtype=float)
 
     @property
     def widths_H_nm(self) -> np.ndarray:
+        """Kernel widths H, nucleus to nucleus (nm), a copy."""
         return np.array(self.data.widths_H_nm, dtype=float)
 
     @property
     def widths_w_nm(self) -> np.ndarray:
+        """Kernel widths w, as presented to inversions (nm), a copy."""
         return np.array(self.data.widths_w_nm, dtype=float)
 
     def temperature_index(self, temperature: float | int | np.integer) -> int:

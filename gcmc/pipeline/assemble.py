@@ -17,6 +17,8 @@ from gcmc.pipeline.tasks import BRANCHES, BuildPlan, load_task, task_path
 
 @dataclass
 class FitSummary:
+    """The chosen fit of one isotherm, for the build's summary."""
+
     t_index: int
     w_index: int
     form: str
@@ -36,6 +38,7 @@ def _library_versions() -> dict[str, str]:
 
 
 def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[FitSummary]]:
+    """Collect a plan's task files into a KernelData: points, fits, dense table, provenance."""
     from gcmc.kernel.forms import evaluate_fit
     from gcmc.pipeline.fits import fit_isotherm
 

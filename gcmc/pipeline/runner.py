@@ -62,6 +62,7 @@ class BuildLock:
         self.held = False
 
     def acquire(self) -> None:
+        """Take the build lock, or raise InputError naming the live owner."""
         self.path.parent.mkdir(parents=True, exist_ok=True)
         me = f"{socket.gethostname()} {os.getpid()}{_slurm_run()}\n"
         for _ in range(2):
@@ -110,6 +111,7 @@ class BuildLock:
         return False
 
     def release(self) -> None:
+        """Give the build lock back (remove the lock file)."""
         if self.held:
             self.path.unlink(missing_ok=True)
             self.held = False
@@ -125,12 +127,15 @@ def _slurm_run() -> str:
 
 
 class BuildLog:
+    """The build's log file: one time-stamped line per event, thread-safe."""
+
     def __init__(self, path: Path):
         path.parent.mkdir(parents=True, exist_ok=True)
         self.path = path
         self._lock = threading.Lock()
 
     def write(self, line: str) -> None:
+        """Append one time-stamped line."""
         stamp = time.strftime("%Y-%m-%d %H:%M:%S")
         with self._lock, open(self.path, "a") as fh:
             fh.write(f"{stamp} {line}\n")
@@ -138,6 +143,8 @@ class BuildLog:
 
 @dataclass
 class RunReport:
+    """What a run of tasks did: task keys done and failed, tasks reused, seconds."""
+
     done: list[str] = field(default_factory=list)
     failed: list[str] = field(default_factory=list)
     skipped: int = 0
@@ -280,10 +287,12 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:
 
 
 def load_plan(config_path: str | Path) -> BuildPlan:
+    """Read a config file and plan its build (EOS states, tasks, seeds)."""
     return make_plan(load_config(config_path))
 
 
 def progress_bar(total: int, initial: int, enabled: bool):
+    """A tqdm progress bar over the build's points, on stderr (disabled unless ``enabled``)."""
     from tqdm import tqdm
 
     return tqdm(

@@ -32,6 +32,8 @@ BRANCHES = ("adsorption", "desorption")
 
 @dataclass(frozen=True)
 class TemperaturePlan:
+    """The bulk states of one temperature's pressure grid, from the equation of state."""
+
     temperature_K: float
     saturation_pressure_Pa: float
     pressures_Pa: np.ndarray
@@ -43,17 +45,22 @@ class TemperaturePlan:
 
 @dataclass(frozen=True)
 class Task:
+    """One task: a pressure ladder at one temperature and one width."""
+
     t_index: int
     w_index: int
     estimated_cost: float
 
     @property
     def key(self) -> str:
+        """The task's name in file names and logs, ``t<T>_w<W>``."""
         return f"t{self.t_index:03d}_w{self.w_index:03d}"
 
 
 @dataclass(frozen=True)
 class BuildPlan:
+    """A planned build: the config, the bulk states per temperature and the tasks."""
+
     config: RunConfig
     temperatures: list[TemperaturePlan]
     tasks: list[Task]  # most expensive first
@@ -62,6 +69,7 @@ class BuildPlan:
 
     @property
     def n_points(self) -> int:
+        """Points the build simulates (both branches counted)."""
         per = len(self.config.pressures.values) * (2 if self.config.pressures.descending else 1)
         return per * len(self.tasks)
 
@@ -128,10 +136,12 @@ def make_plan(cfg: RunConfig) -> BuildPlan:
 
 
 def task_seed(cfg: RunConfig, task: Task) -> np.random.SeedSequence:
+    """The random seed of a task: ``SeedSequence(seed, spawn_key=(t, w))``."""
     return np.random.SeedSequence(entropy=cfg.seed, spawn_key=(task.t_index, task.w_index))
 
 
 def pore_model(cfg: RunConfig, w_index: int) -> PoreModel:
+    """The pore model of one kernel width."""
     return PoreModel(
         probe=cfg.probe,
         solid=cfg.solid,
@@ -143,10 +153,12 @@ def pore_model(cfg: RunConfig, w_index: int) -> PoreModel:
 
 
 def task_path(plan: BuildPlan, task: Task) -> Path:
+    """The task's result file (.npz)."""
     return plan.task_dir / f"{task.key}.npz"
 
 
 def failure_path(plan: BuildPlan, task: Task) -> Path:
+    """The task's failure record (.json)."""
     return plan.task_dir / f"{task.key}.failed.json"
 
 
@@ -255,6 +267,7 @@ def _atomic_savez(path: Path, arrays: dict[str, np.ndarray]) -> None:
 
 
 def load_task(path: Path) -> tuple[dict[str, np.ndarray], dict]:
+    """A task file's arrays and its metadata dict."""
     with np.load(path) as z:
         arrays = {k: z[k] for k in z.files}
     meta = json.loads(arrays.pop("meta_json").tobytes().decode())
@@ -307,6 +320,7 @@ def _worker_run(plan: BuildPlan, t_index: int, w_index: int) -> tuple[str, str, 
 
 
 def pending_tasks(plan: BuildPlan) -> list[Task]:
+    """The plan's tasks without a result file, in the plan's order."""
     return [t for t in plan.tasks if not task_path(plan, t).exists()]
 
 

@@ -70,6 +70,7 @@ def _t_suffix(temperature_K: float) -> str:
 # panels
 # --------------------------------------------------------------------------------------------
 def plot_isotherms(ax, kernel: Kernel, t: int) -> None:
+    """Panel: the kernel's isotherms at one temperature."""
     d = kernel.data
     temp = float(d.temperatures_K[t])
     p = np.asarray(d.pressures_Pa[t], float)
@@ -115,6 +116,7 @@ def _scalar_mappable(cmap, norm):
 
 
 def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:
+    """Panel: relative standard errors of the points against the target."""
     d = kernel.data
     p = np.asarray(d.pressures_Pa[t], float)
     pts = d.points["adsorption"]
@@ -159,6 +161,7 @@ def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:
 
 
 def plot_resolving_power(ax, res: ResolvingPower) -> None:
+    """Panel: resolving power against width."""
     w = res.widths_w_nm
     rho = res.resolution_fraction
     ax.plot(
@@ -204,6 +207,7 @@ def plot_resolving_power(ax, res: ResolvingPower) -> None:
 
 
 def plot_singular_values(ax, res: ResolvingPower) -> None:
+    """Panel: singular values of the kernel matrix."""
     s = res.singular_values
     k = np.arange(1, s.size + 1)
     ax.semilogy(k, np.where(s > 0, s, np.nan), "o-", ms=3, color="#0969da")
@@ -219,6 +223,7 @@ def plot_singular_values(ax, res: ResolvingPower) -> None:
 
 
 def plot_round_trip(ax, rt: RoundTrip) -> None:
+    """Panel: a synthetic PSD and its recoveries."""
     med, lo, hi = rt.recovered_band()
     ax.fill_between(
         rt.widths_nm, lo, hi, color="#0969da", alpha=0.2, lw=0, label="recovered 16-84 %"

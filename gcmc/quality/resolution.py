@@ -89,10 +89,12 @@ class NoiseModel:
             raise InputError("noise: the relative and absolute noise cannot both be 0")
 
     def sigma(self, amount_mmol_cm3: np.ndarray | float) -> np.ndarray:
+        """Standard deviation of a measured amount (mmol/cm^3) under this noise model."""
         n = np.asarray(amount_mmol_cm3, dtype=float)
         return np.sqrt((self.relative * n) ** 2 + self.absolute_mmol_cm3**2)
 
     def describe(self) -> str:
+        """The noise model as a formula."""
         return f"sigma = sqrt(({self.relative:g} n)^2 + ({self.absolute_mmol_cm3:g} mmol/cm3)^2)"
 
 
@@ -136,6 +138,7 @@ class ResolvingPower:
         return self._at(self.single_step_nm, w_nm)
 
     def is_resolved(self, w_nm: float) -> bool:
+        """Whether a width (w, nm) is resolved."""
         if self.all_resolved:
             return True
         if self.none_resolved:
@@ -143,6 +146,7 @@ class ResolvingPower:
         return bool(w_nm <= self.limit_w_nm)
 
     def summary(self) -> str:
+        """One line on the resolving power."""
         rho = self.resolution_fraction
         if self.none_resolved:
             return f"no kernel width is resolved (dw_2 > {rho:g} w everywhere)"

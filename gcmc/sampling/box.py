@@ -120,14 +120,17 @@ class Box:
     # -- parameters ---------------------------------------------------------------------
     @property
     def n_molecules(self) -> int:
+        """Molecules in the box now."""
         return int(self.ip[E.I_N])
 
     @property
     def n_bins(self) -> int:
+        """Number of z bins of the density profile."""
         return int(self.ip[E.I_NBINS])
 
     @property
     def max_displacement_nm(self) -> float:
+        """Maximum displacement of a translation move (nm)."""
         return float(self.fp[E.F_DMAX])
 
     @max_displacement_nm.setter
@@ -136,6 +139,7 @@ class Box:
 
     @property
     def activity_nm3(self) -> float:
+        """Activity z = f/kT of the reservoir (nm^-3)."""
         return float(self.fp[E.F_ZV] / self.fp[E.F_VOLUME])
 
     @activity_nm3.setter
@@ -216,6 +220,7 @@ class Box:
 
     # -- configurations ---------------------------------------------------------------------
     def positions(self) -> np.ndarray:
+        """The molecules' positions (N, 3) in nm, a copy."""
         n = self.n_molecules
         c = self.pid_cell[:n]
         s = self.pid_slot[:n]

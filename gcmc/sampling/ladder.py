@@ -88,6 +88,7 @@ class LadderOutcome:
 
     @property
     def swap_acceptance(self) -> np.ndarray:
+        """Accepted fraction of swaps per neighbouring pair (NaN where none was tried)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             return np.where(
                 self.swap_attempts > 0,

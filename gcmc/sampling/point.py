@@ -39,6 +39,7 @@ class ThermoState:
 
     @property
     def activity_nm3(self) -> float:
+        """Activity z = f/kT (nm^-3)."""
         return activity_per_nm3(self.fugacity_Pa, self.temperature_K)
 
 
@@ -79,6 +80,7 @@ class SamplingSettings:
     exchange: bool = False
 
     def validate(self) -> None:
+        """Raise InputError naming the first setting out of range."""
         from gcmc.errors import InputError
 
         for name in ("equilibration_moves", "production_moves", "sample_every"):
@@ -134,11 +136,14 @@ class PointResult:
     pore_volume_nm3: float = float("nan")
 
     def to_dict(self) -> dict[str, Any]:
+        """The result as a plain dict."""
         return asdict(self)
 
 
 @dataclass
 class PointOutcome:
+    """A point's result with what a ladder carries on to the next point."""
+
     result: PointResult
     positions: np.ndarray  # final configuration of the first replica (for the ladder)
     max_displacement_nm: float
