@@ -681,6 +681,8 @@ def update_readme(path: Path = README, check: bool = False) -> bool:
 
     Returns True when the file is (or now is) up to date; with ``check`` False when stale.
     """
+    if not path.is_file():
+        raise SystemExit(f"{path}: no such file (run from a source checkout, or give --readme)")
     text = path.read_text(encoding="utf-8")
     if BEGIN not in text or END not in text:
         raise SystemExit(f"{path}: the schema markers are missing")
