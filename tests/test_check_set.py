@@ -154,9 +154,9 @@ def test_set_resolves_more_than_either_member(pair) -> None:
 # joint round trip
 # --------------------------------------------------------------------------------------------
 def test_joint_round_trip_recovers_what_neither_member_recovers(pair) -> None:
-    """Two modes, one at 0.55 nm (mostly inside pores the large probe cannot enter) and one at 2.0 nm
-    (where the small probe carries no width information): known by construction to need both
-    probes."""
+    """Two modes, one at 0.55 nm (mostly inside pores the large probe cannot enter) and one at
+    2.0 nm (where the small probe carries no width information): known by construction to need
+    both probes."""
     jr = joint_resolution(list(pair))
     psd = SyntheticPSD("narrow and wide", ((0.55, 0.1, 0.5), (2.0, 0.12, 0.5)))
     rt = joint_round_trip(list(pair), jr, psd, realisations=8, seed=11)
