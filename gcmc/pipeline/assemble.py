@@ -163,6 +163,7 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
             points["adsorption"]["isosteric_heat_kJ_per_mol"],
             points["adsorption"]["isosteric_heat_kJ_per_mol_stderr"],
             accessible,
+            points["adsorption"]["density_per_nm3_stderr"],
         ),
     )
     return data, summaries
