@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 
+from gcmc.kernel.heat import HeatKernel
 from gcmc.kernel.schema import POINT_FIELDS as _POINT_FIELDS
 
 #: Quantities stored per simulated point, with their units (from the schema table).
@@ -124,3 +125,5 @@ class KernelData:
     task_seeds: np.ndarray  # (T, W) uint64 entropy words per task
     task_seconds: np.ndarray  # (T, W)
     extra: dict[str, np.ndarray] = field(default_factory=dict)
+    # the isosteric-heat kernel (gcmc.kernel.heat), None when the kernel has none
+    heat: HeatKernel | None = None

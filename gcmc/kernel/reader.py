@@ -33,6 +33,7 @@ from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
 from gcmc.kernel import schema as _schema
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.heat import heat_matrix, read_heat
 from gcmc.kernel.schema import (
     CHECKSUM_ATTR,
     DICT_LAYOUT_ATTR,
@@ -361,7 +362,8 @@ def _read_kernel_data(f: h5py.File, values: dict[str, Any] | None = None) -> Ker
         else:
             value = _read(f, e.path)
             fields[e.field] = value.astype(bool) if e.dtype == "bool" else value
-    return KernelData(points=points, flags=flags, fits=fits, extra=extra, **fields)
+    heat = read_heat(f, values)
+    return KernelData(points=points, flags=flags, fits=fits, extra=extra, heat=heat, **fields)
 
 
 def _attr_value(e: _schema.Entry, value: Any) -> Any:
@@ -522,6 +524,23 @@ class Kernel:
         return out
 
     kernel_matrix = evaluate
+
+    def isosteric_heat(
+        self,
+        pressures_Pa: Iterable[float] | np.ndarray,
+        widths_nm: Iterable[float] | np.ndarray,
+        temperature_K: float,
+        width_axis: str = "w",
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """The isosteric-heat kernel q_st (kJ/mol) and its standard errors, each of shape
+        (len(pressures), len(widths)); see gcmc.kernel.heat. InputError if the file has none."""
+        return heat_matrix(
+            self,
+            np.asarray(pressures_Pa, float),
+            np.asarray(widths_nm, float),
+            temperature_K,
+            width_axis,
+        )
 
     def bulk_density(self, pressures_Pa: np.ndarray, temperature: float | int) -> np.ndarray:
         """Bulk density (molecules/nm^3) of the kernel's EOS at pressures (Pa), interpolated

@@ -566,6 +566,61 @@ SCHEMA: tuple[Entry, ...] = (
         required=False,
         describe=False,
     ),
+    # ---- isosteric-heat kernel (optional; written and read by gcmc.kernel.heat) -------------
+    _a("isosteric_heat", "form", "str", '`"loading_polynomial"`', required=False),
+    _a("isosteric_heat", "equation", "str", "the form's equation", required=False),
+    _a(
+        "isosteric_heat",
+        "reference",
+        "str",
+        "where the heats and the form come from",
+        required=False,
+    ),
+    *(
+        Entry(
+            "isosteric_heat",
+            name,
+            "dataset",
+            dtype,
+            shape,
+            unit,
+            meaning,
+            required=False,
+            describe=False,
+        )
+        for name, dtype, shape, unit, meaning in (
+            (
+                "coefficients",
+                "float64",
+                "TW4",
+                "kJ/mol per (nm^-3)^i",
+                "a_i of q_st(n) = sum_i a_i n^i, NaN beyond the degree",
+            ),
+            (
+                "covariance",
+                "float64",
+                "TW44",
+                "(kJ/mol)^2 per (nm^-3)^(i+j)",
+                "covariance of the a_i, scaled by max(1, chi2/dof)",
+            ),
+            (
+                "degree",
+                "int64",
+                "TW",
+                "1",
+                "0..3; -1 where no heat was fitted (inaccessible pores, no point with an error)",
+            ),
+            ("chi2", "float64", "TW", "1", "chi-square of the heat fit"),
+            ("dof", "int64", "TW", "1", "degrees of freedom of the heat fit"),
+            (
+                "loading_range_per_nm3",
+                "float64",
+                "TW2",
+                "nm^-3",
+                "the fitted range of loadings [n_lo, n_hi]",
+            ),
+        )
+    ),
 )
 
 #: Quantities stored per simulated point, with their units (dataset name -> units).
@@ -624,6 +679,17 @@ _GROUP_NOTES: dict[str, str] = {
         "`zero` marks a pore too narrow for the probe: no parameters, n = 0."
     ),
     "extra": "`extra@order` keeps the order of the free datasets.",
+    "isosteric_heat": (
+        "Optional (kernels built since the heat kernel exists). The isosteric-heat kernel, "
+        "fitted across pressure per width (`gcmc.kernel.heat`, `gcmc.pipeline.heat`): q_st(n) "
+        "= sum_i a_i n^i in the pore's absolute density n (nm^-3), the form of the virial "
+        "isotherm's heat (Czepirski & Jagiełło, Chem. Eng. Sci. 44 (1989) 797), fitted by "
+        "weighted least squares to the per-point heats of the adsorption branch (fluctuation "
+        "formula) with the highest degree the points allow (min(3, N - 2)); the loadings' "
+        "errors enter by effective variance. a_0 is the zero-loading (Henry-limit) heat; "
+        "`tests/test_heat_kernel.py` checks it against the exact R d ln K_H / d(1/T) from the "
+        "Henry quadrature."
+    ),
 }
 
 

@@ -28,6 +28,7 @@ from gcmc.files import atomic_path
 from gcmc.kernel import forms as _forms
 from gcmc.kernel import schema as _schema
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.heat import HEAT_GROUP, validate_heat, write_heat
 from gcmc.kernel.reader import compute_checksums, open_kernel, simulated_ranges
 from gcmc.kernel.schema import CHECKSUM_ATTR, DICT_LAYOUT_ATTR, FORMAT_NAME, SCHEMA_VERSION
 
@@ -323,6 +324,8 @@ def validate(data: KernelData) -> None:
     if seeds.dtype.kind == "i" and np.any(seeds < 0):
         raise InputError("task_seeds: must be >= 0 (uint64 entropy words)")
     _arr(data.task_seconds, "task_seconds", (n_t, n_w))
+    if data.heat is not None:
+        validate_heat(data.heat, n_t, n_w)
     if not isinstance(data.extra, dict):
         raise InputError("extra: must be a dict name -> array")
     for key, value in data.extra.items():
@@ -582,6 +585,10 @@ def _write_contents(f: h5py.File, data: KernelData) -> None:
             if e.name == "field_order":  # the first row of a branch: write them all
                 for branch in data.points:
                     _write_branch(f.require_group(f"points/{branch}"), data, branch, scales)
+            continue
+        if e.group == HEAT_GROUP:  # optional: gcmc.kernel.heat writes the group's rows
+            if e.name == "form" and data.heat is not None:
+                write_heat(f, data.heat)
             continue
         g = f.require_group(e.group) if e.group else f
         if e.group == "extra" and e.name == "<name>":
