@@ -102,6 +102,8 @@ def test_sample_of_schema_1_0_reads_as_before() -> None:
     _flatten(k.data, "", arrays, meta)
     expected = json.loads((DATA / "sample-schema-1.0.expected.json").read_text())
     assert k.info == expected["info"]
+    # a field added since (the optional heat kernel) reads as absent
+    assert meta.pop("/heat") == {"type": "NoneType", "value": None}
     assert json.loads(json.dumps(meta)) == expected["values"]
     with np.load(DATA / "sample-schema-1.0.expected.npz") as z:
         assert sorted(z.files) == sorted(arrays)
@@ -125,13 +127,17 @@ def test_every_row_written_is_in_the_table_and_back(tmp_path: Path) -> None:
     rows = _h5_rows(SAMPLE)
     table = {e.path for e in schema.SCHEMA}
     assert rows - table == set()
-    assert table - rows - {"@" + schema.CHECKSUM_ATTR} == set()
+    optional_groups = {"isosteric_heat"}  # absent from the sample (no heat kernel)
+    expected = {p for p in table if p.split("/")[0].split("@")[0] not in optional_groups}
+    assert expected - rows - {"@" + schema.CHECKSUM_ATTR} == set()
 
 
 def test_units_and_descriptions_follow_the_table() -> None:
     with h5py.File(SAMPLE, "r") as f:
         for e in schema.SCHEMA:
             if e.kind not in ("dataset", "scale") or e.name == "<name>":
+                continue
+            if not e.required and e.at("adsorption") not in f:
                 continue
             ds = f[e.at("adsorption")]
             if e.unit is None:
@@ -152,6 +158,7 @@ def test_point_fields_come_from_the_table() -> None:
         "flags",
         "fits",
         "extra",
+        "heat",
     } == {f.name for f in dataclasses.fields(KernelData)}
 
 
@@ -189,3 +196,24 @@ def test_readme_section_is_generated_from_the_table(tmp_path: Path) -> None:
     assert stale.read_text(encoding="utf-8") == text
     for e in schema.SCHEMA:
         assert f"| `{e.name}` |" in text, e.path
+
+
+def test_optional_heat_group_rows_and_units_follow_the_table(tmp_path: Path) -> None:
+    """A kernel with the isosteric-heat kernel: the optional group's attributes and datasets
+    are exactly the table's rows, with the table's units, and the file reads back."""
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    from test_heat_kernel import _with_heat
+
+    data = _with_heat()
+    path = write_kernel(data, tmp_path)
+    rows = {r for r in _h5_rows(path) if r.startswith("isosteric_heat")}
+    table = {e.path for e in schema.SCHEMA if e.group == "isosteric_heat"}
+    assert rows == table
+    with h5py.File(path, "r") as f:
+        for e in schema.SCHEMA:
+            if e.group == "isosteric_heat" and e.kind == "dataset":
+                assert f[e.path].attrs["units"] == e.unit, e.path
+                assert f[e.path].dtype == np.dtype(e.dtype), e.path
+    back = open_kernel(path).data.heat
+    assert back is not None
+    np.testing.assert_array_equal(back.degree, data.heat.degree)
