@@ -47,22 +47,30 @@ import numpy as np
 from gcmc.physics.henry import pore_limit
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.sampling import statistics as st
-from gcmc.sampling.box import Box, EngineOptions
+from gcmc.sampling.box import (
+    Box,
+    EngineOptions,
+    acceptance_ratios,
+    insertion_counts_of,
+    new_counters,
+)
 from gcmc.sampling.point import (
+    CHUNKS,
+    MIN_SAMPLES_DRIFT,
+    MIN_SAMPLES_TARGET,
     PointOutcome,
     SamplingSettings,
     ThermoState,
     _analyse,
     _blocked_result,
     _ReplicaRun,
+    adapted_step,
     shared_insertion_trials,
 )
 from gcmc.sampling.rng import seed_state
 
 #: default length of a round (moves per box between swap attempts), in units of sample_every
 ROUND_SAMPLES = 10
-
-_K_TRIALS = 5  # engine iparams index of the insertion trials (gcmc.sampling.engine.I_KTRIALS)
 
 
 def swap_acceptance(z_i: float, z_j: float, n_i: int, n_j: int) -> float:
@@ -87,6 +95,7 @@ class LadderOutcome:
 
     @property
     def swap_acceptance(self) -> np.ndarray:
+        """Accepted fraction of swaps per neighbouring pair (NaN where none was tried)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             return np.where(
                 self.swap_attempts > 0,
@@ -109,7 +118,7 @@ class _Rung:
         self.written = 0
         self.moves = 0
         self.seconds = 0.0
-        self.counters = np.zeros(6, dtype=np.int64)
+        self.counters = new_counters()
         # insertion attempts / acceptances in the measurement window of the shared
         # insertion-method rule (second half of the first equilibration half)
         self.ins_tries = 0
@@ -121,12 +130,7 @@ class _Rung:
         box.max_displacement_nm = self.dmax
 
     def acceptance(self) -> dict[str, float]:
-        c = self.counters
-
-        def ratio(a: int, b: int) -> float:
-            return float(c[a] / c[b]) if c[b] else float("nan")
-
-        return {"displacement": ratio(1, 0), "insertion": ratio(3, 2), "deletion": ratio(5, 4)}
+        return acceptance_ratios(self.counters)
 
 
 class _Ladder:
@@ -168,7 +172,7 @@ class _Ladder:
             self.rungs.append(
                 _Rung(
                     s.activity_nm3,
-                    int(box.ip[_K_TRIALS]),
+                    box.insertion_trials,
                     box.max_displacement_nm,
                     capacity,
                     box.n_bins,
@@ -228,10 +232,11 @@ class _Ladder:
             sig = box.model.probe.sigma_nm
             lmax = 0.5 * min(box.model.box_lengths_nm)
             if math.isfinite(a):
-                rung.dmax = float(np.clip(rung.dmax * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, lmax))
+                rung.dmax = adapted_step(rung.dmax, a, sig, lmax)
             if measure:
-                rung.ins_tries += int(rung.counters[2])
-                rung.ins_accepts += int(rung.counters[3])
+                n_try, n_acc = insertion_counts_of(rung.counters)
+                rung.ins_tries += n_try
+                rung.ins_accepts += n_acc
             rung.counters[:] = 0
 
     def rounds_for(self, moves: int) -> int:
@@ -260,7 +265,7 @@ class _Ladder:
                 self.adapt(measure=(measure and z_scale == 1.0 and r >= stop // 2))
 
     def rounds_per_adapt(self, moves: int) -> int:
-        return max(1, self.rounds_for(moves) // 20)
+        return max(1, self.rounds_for(moves) // CHUNKS)
 
     def half_round(self, moves: int) -> int:
         """The first adaptation boundary at or past the middle of an equilibration."""
@@ -281,7 +286,7 @@ class _Ladder:
             self.rounds_for(total), len(self.rungs[0].n) * s.sample_every // self.round_moves
         )
         min_rounds = self.rounds_for(s.production_moves)
-        check_every = max(1, min_rounds // 20)
+        check_every = max(1, min_rounds // CHUNKS)
         for r in range(n_rounds):
             self.run_round()
             if target > 0 and r + 1 >= min_rounds and (r + 1) % check_every == 0:
@@ -300,7 +305,7 @@ class _Ladder:
             uff = rung.uff[: rung.written]
             usf = rung.usf[: rung.written]
             t0 = 0
-            if len(n) >= 40 and np.ptp(n) > 0:
+            if len(n) >= MIN_SAMPLES_DRIFT and np.ptp(n) > 0:
                 t0, _, _ = st.detect_equilibration(n.astype(float))
             acc = rung.acceptance()
             runs.append(
@@ -321,7 +326,7 @@ class _Ladder:
 
 
 def _target_met(rung: _Rung, target: float) -> bool:
-    if rung.written < 64:
+    if rung.written < MIN_SAMPLES_TARGET:
         return False
     x = rung.n[: rung.written].astype(float)
     est = st.block_average(x)
