@@ -517,18 +517,21 @@ def test_replicas_of_a_point_sample_with_one_insertion_method(monkeypatch) -> No
     assert out.insertion_trials == seen[-1][0]
 
 
-def test_shared_insertion_rule_pools_the_replicas() -> None:
-    """The shared rule: a configured method is used as given; automatic: biased insertion when
-    the pooled plain-insertion acceptance of all replicas is below the threshold (and the pore
-    holds a molecule), plain otherwise; one replica's low acceptance alone does not decide."""
+def test_shared_insertion_rule_takes_the_most_demanding_replica() -> None:
+    """The shared rule: a configured method is used as given; automatic: biased insertion for
+    all replicas when any replica's plain-insertion acceptance at the point's activity is
+    below the threshold (with a molecule in the pore) or its over-filled preparation switched
+    to biased insertion; plain insertion for all otherwise."""
     from gcmc.sampling.point import shared_insertion_trials
 
     auto = SamplingSettings(insertion_trials=0, biased_trials=64, bias_threshold=0.03)
     assert shared_insertion_trials(SamplingSettings(insertion_trials=8), [10], [0], [True]) == 8
-    # 2 % and 6 %: pooled 4 % >= 3 %: plain for both
-    assert shared_insertion_trials(auto, [1000, 1000], [20, 60], [True, True]) == 1
-    # 2 % and 3 %: pooled 2.5 %: biased for both
-    assert shared_insertion_trials(auto, [1000, 1000], [20, 30], [True, True]) == 64
+    # 2 % in one replica, 6 % in the other: biased for both
+    assert shared_insertion_trials(auto, [1000, 1000], [20, 60], [True, True]) == 64
+    # 4 % and 6 %: plain for both
+    assert shared_insertion_trials(auto, [1000, 1000], [40, 60], [True, True]) == 1
+    # ... unless the over-filled preparation needed biased insertion
+    assert shared_insertion_trials(auto, [1000, 1000], [40, 60], [True, True], [1, 64]) == 64
     # nothing held (an inaccessible or empty pore) or nothing measured: plain
     assert shared_insertion_trials(auto, [1000, 1000], [0, 0], [False, False]) == 1
     assert shared_insertion_trials(auto, [0, 0], [0, 0], [True, True]) == 1

@@ -291,27 +291,35 @@ def _equilibrate(
 
 
 def shared_insertion_trials(
-    settings: SamplingSettings, tries: list[int], accepts: list[int], holds: list[bool]
+    settings: SamplingSettings,
+    tries: list[int],
+    accepts: list[int],
+    holds: list[bool],
+    prepared: list[int] | None = None,
 ) -> int:
     """The insertion method (k trial positions; 1 = plain) that every replica of a point
     samples with, decided once per point from all its replicas alike.
 
     A fixed ``settings.insertion_trials`` > 0 is used as given. Automatic (0): biased
-    insertion with ``biased_trials`` when plain insertion at the point's activity, pooled over
-    the replicas' measurement windows (``tries``, ``accepts``: insertion attempts and
-    acceptances per replica), is accepted less than ``bias_threshold`` per attempt and some
-    replica holds a molecule (``holds``); plain insertion otherwise. Pooling makes the
-    decision a property of the point, not of one replica's start: the replica from below and
-    the over-filled one would otherwise each decide from their own history, sample with
-    different methods (different statistical inefficiencies, different error estimates) and
-    inflate their agreement z-scores."""
+    insertion with ``biased_trials`` when any replica calls for it, plain insertion otherwise.
+    A replica calls for it when its plain insertion at the point's activity, in its
+    measurement window (``tries`` attempts, ``accepts`` accepted), is accepted less than
+    ``bias_threshold`` per attempt while the pore holds a molecule (``holds``), or when its
+    over-filled preparation had to switch to biased insertion (``prepared``: the k each
+    preparation ended with; the dense side the point is approached from is then too dense for
+    plain insertion). One decision for all: otherwise the replica from below and the
+    over-filled one each decide from their own history and sample with different methods.
+    The most demanding replica decides, because plain insertion where one replica finds it
+    failing leaves block errors without a plateau (benchmarks/README.md, "Replica agreement in
+    builds")."""
     if settings.insertion_trials > 0:
         return int(settings.insertion_trials)
-    n_try = int(sum(tries))
-    if n_try == 0 or not any(holds):
-        return 1
-    if sum(accepts) / n_try < settings.bias_threshold:
-        return int(settings.biased_trials)
+    biased = int(settings.biased_trials)
+    if prepared is not None and any(k > 1 for k in prepared):
+        return biased
+    for n_try, n_acc, held in zip(tries, accepts, holds, strict=True):
+        if held and n_try > 0 and n_acc / n_try < settings.bias_threshold:
+            return biased
     return 1
 
 
@@ -349,12 +357,14 @@ class _Replica:
         eq = settings.equilibration_moves
         self.moves = 0  # all trial moves of this replica
         self.start_n = -1
+        self.prepared_k = 1  # the insertion method the over-filled preparation ended with
         if overfill:
             box.activity_nm3 = z * settings.overfill_factor
             _equilibrate(box, eq // 2, settings, progress, self.clock, auto_bias=True)
             self.moves += eq // 2
             box.activity_nm3 = z
             self.start_n = box.n_molecules
+            self.prepared_k = box.insertion_trials
             # the preparation's method is not the sampling method: back to the configured
             # one (plain when automatic) until the point decides for all replicas
             box.set_insertion_trials(max(1, settings.insertion_trials))
@@ -568,6 +578,7 @@ def simulate_point(
         [r.insertion_tries for r in reps],
         [r.insertion_accepts for r in reps],
         [r.box.n_molecules > 0 for r in reps],
+        [r.prepared_k for r in reps],
     )
     for r in reps:
         r.settle(k_trials)
