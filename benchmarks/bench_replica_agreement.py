@@ -156,16 +156,24 @@ def _lag1(rows: list[dict]) -> float:
     return float(np.corrcoef(a, b)[0, 1]) if len(a) > 2 else math.nan
 
 
+def _flagged(rows: list[dict], name: str) -> int:
+    """Points carrying a flag of this name (for either replica)."""
+    return sum(1 for r in rows if any(f.startswith(name) for f in r["flags"]))
+
+
 def _diagnostics(named: dict[str, list[dict]]) -> str:
     lines = [
         "| run | seed-to-seed chi2/dof, replica from below | same, over-filled replica | "
-        "lag-1 correlation of z along a ladder |",
-        "|---|---|---|---|",
+        "lag-1 correlation of z along a ladder | points with both replicas biased | "
+        "points flagged error_unreliable | drift | replicas_disagree |",
+        "|---|---|---|---|---|---|---|---|",
     ]
     for name, rows in named.items():
+        both = sum(1 for r in rows if min(r["k_trials"]) > 1)
         lines.append(
             f"| {name} | {_seed_chi2(rows, 0):.2f} | {_seed_chi2(rows, 1):.2f} | "
-            f"{_lag1(rows):+.3f} |"
+            f"{_lag1(rows):+.3f} | {both} | {_flagged(rows, 'error_unreliable')} | "
+            f"{_flagged(rows, 'drift')} | {_flagged(rows, 'replicas_disagree')} |"
         )
     return "\n".join(lines)
 
@@ -243,6 +251,8 @@ def main() -> None:
         )
         tmp.replace(args.json)
     print(_table({args.label: rows}))
+    print()
+    print(_diagnostics({args.label: rows}))
     print(f"wall {wall:.0f} s, CPU {time.process_time():.0f} s")
     if not math.isfinite(wall):
         sys.exit(1)
