@@ -30,6 +30,7 @@ import sys
 import tempfile
 import time
 import tomllib
+from collections.abc import Callable
 from pathlib import Path
 
 os.environ.setdefault("NUMBA_NUM_THREADS", "1")
@@ -71,7 +72,15 @@ def _capture() -> list[dict]:
     return seen
 
 
-def run(seeds: list[int], equilibration: int, production: int, every: int) -> list[dict]:
+def run(
+    seeds: list[int],
+    equilibration: int,
+    production: int,
+    every: int,
+    save: Callable[[list[dict]], None] | None = None,
+) -> list[dict]:
+    """Per-point records of the quickstart ladders for these seeds; ``save`` is called with
+    the records so far after every task (a long run keeps what it has measured)."""
     seen = _capture()
     base = tomllib.loads(QUICKSTART.read_text())
     rows: list[dict] = []
@@ -105,6 +114,8 @@ def run(seeds: list[int], equilibration: int, production: int, every: int) -> li
                     flush=True,
                 )
                 task_path(plan, task).unlink()
+                if save:
+                    save(rows)
     return rows
 
 
@@ -230,26 +241,27 @@ def main() -> None:
         return
     t0 = time.perf_counter()
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
-    rows = run(seeds, args.equilibration, args.production, args.every)
-    wall = time.perf_counter() - t0
-    if args.json:
+
+    def save(rows: list[dict]) -> None:
+        if not args.json:
+            return
         tmp = args.json.with_name(f".{args.json.name}.tmp")
-        tmp.write_text(
-            json.dumps(
-                {
-                    "label": args.label,
-                    "seeds": seeds,
-                    "equilibration_moves": args.equilibration,
-                    "production_moves": args.production,
-                    "sample_every": args.every,
-                    "wall_s": wall,
-                    "cpu_s": time.process_time(),
-                    "points": rows,
-                },
-                indent=1,
-            )
-        )
+        record = {
+            "label": args.label,
+            "seeds": seeds,
+            "equilibration_moves": args.equilibration,
+            "production_moves": args.production,
+            "sample_every": args.every,
+            "wall_s": time.perf_counter() - t0,
+            "cpu_s": time.process_time(),
+            "points": rows,
+        }
+        tmp.write_text(json.dumps(record, indent=1))
         tmp.replace(args.json)
+
+    rows = run(seeds, args.equilibration, args.production, args.every, save)
+    wall = time.perf_counter() - t0
+    save(rows)
     print(_table({args.label: rows}))
     print()
     print(_diagnostics({args.label: rows}))
