@@ -128,7 +128,7 @@ def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
         flagged = int(np.count_nonzero((flags != "") & np.isfinite(n)))
         tokens = _flag_tokens(flags[np.isfinite(n)])
         detail = ", ".join(f"{k} {v}" for k, v in tokens.most_common()) or "none"
-        conv = fields.get("converted")
+        conv = fields.get("converged")
         not_conv = (
             int(np.count_nonzero(~np.asarray(conv, bool) & np.isfinite(n)))
             if conv is not None
