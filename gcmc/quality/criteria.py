@@ -223,7 +223,7 @@ class RoundTrip:
 class CheckSettings:
     """Options of :func:`run_checks` (the CLI's options, with the same defaults)."""
 
-    target_rel_error: float = 0.02
+    target_rel_stderr: float = 0.02
     noise: NoiseModel = field(default_factory=NoiseModel)
     pressures_Pa: np.ndarray | None = None  # None: the kernel's own at each temperature
     temperatures_K: tuple[float, ...] | None = None  # None: every kernel temperature
@@ -236,8 +236,11 @@ class CheckSettings:
     psds: tuple[SyntheticPSD, ...] | None = None  # None: default_psds() per kernel
 
     def validate(self) -> None:
-        if not (np.isfinite(self.target_rel_error) and self.target_rel_error > 0):
-            raise InputError(f"--target-rel-error: must be > 0, got {self.target_rel_error}")
+        if not (np.isfinite(self.target_rel_stderr) and self.target_rel_stderr > 0):
+            raise InputError(
+                f"target_rel_stderr (--target-rel-stderr): must be > 0, got "
+                f"{self.target_rel_stderr}"
+            )
         if self.realisations < 2:
             raise InputError(f"realisations: need at least 2, got {self.realisations}")
         if not (np.isfinite(self.pore_volume_cm3_g) and self.pore_volume_cm3_g > 0):
@@ -282,7 +285,7 @@ class CheckReport:
                 },
                 "verdict": self.verdict,
                 "settings": {
-                    "target_rel_error": s.target_rel_error,
+                    "target_rel_stderr": s.target_rel_stderr,
                     "noise": {
                         "relative": s.noise.relative,
                         "absolute_mmol_cm3": s.noise.absolute_mmol_cm3,
@@ -416,7 +419,7 @@ def _lagrange(xs: np.ndarray, ys: np.ndarray, x: float) -> np.ndarray:
 # --------------------------------------------------------------------------------------------
 def check_point_errors(kernel: Kernel, settings: CheckSettings, ts: list[int]) -> Criterion:
     data = kernel.data
-    target = settings.target_rel_error
+    target = settings.target_rel_stderr
     floor = settings.noise.absolute_mmol_cm3 / MMOL_PER_CM3_PER_NM3
     pts = data.points["adsorption"]
     n = np.asarray(pts["density_per_nm3"], float)
