@@ -148,7 +148,7 @@ def _summary(result) -> None:  # noqa: ANN001
             )
         )
     rows.append(("forms used", ", ".join(f"{k} x{v}" for k, v in forms.most_common())))
-    rows.append(("CPU time in tasks", f"{float(np.sum(data.task_seconds)):.1f} s"))
+    rows.append(("task wall-clock, summed", f"{float(np.sum(data.task_seconds)):.1f} s"))
     rows.append(("wall time", f"{seconds:.1f} s"))
     width = max(len(r[0]) for r in rows)
     print("\n".join(f"  {k:<{width}}  {v}" for k, v in rows))
