@@ -191,3 +191,41 @@ def test_check_kernel_names_bad_arguments(tiny_kernel) -> None:  # noqa: ANN001
     with pytest.raises(InputError, match="target_rel_stderr"):
         api.check_kernel(tiny_kernel.path, target_rel_stderr=0.0)
     assert np.isfinite(tiny_kernel.wall_seconds)
+
+
+def test_default_psds_where_only_the_narrow_widths_are_resolved() -> None:
+    """The check's synthetic distributions stay finite when the middle of the resolved range
+    falls between a resolved width and an unresolved one (dw_2 = inf there): before, the
+    check stopped with an error on such kernels (seen on a 5-width methane kernel at 298 K;
+    the dw_2 values below are that kernel's)."""
+    from gcmc.quality.criteria import default_psds
+    from gcmc.quality.resolution import NoiseModel, ResolvingPower
+
+    w = np.array([0.36, 0.46, 0.66, 1.06, 1.66])
+    pair = np.array([0.028, 0.0416, 0.0918, np.inf, np.inf])
+    nan = np.full(w.size, np.nan)
+    res = ResolvingPower(
+        temperature_K=298.15,
+        pressures_Pa=np.geomspace(1e4, 3.5e6, 5),
+        widths_w_nm=w,
+        widths_H_nm=w + 0.34,
+        single_step_nm=nan,
+        single_step_fixed_volume_nm=nan,
+        pair_half_separation_nm=pair,
+        kernel_noise_share=nan,
+        resolved=np.isfinite(pair),
+        limit_w_nm=1.06,
+        limit_H_nm=1.40,
+        all_resolved=False,
+        none_resolved=False,
+        singular_values=np.ones(3),
+        n_significant=3,
+        chi2_threshold=1.0,
+        resolution_fraction=0.25,
+        noise=NoiseModel(0.01, 0.01),
+    )
+    psds = default_psds(res)
+    for psd in psds:
+        for centre, sd, fraction in psd.modes:
+            assert np.isfinite(centre) and np.isfinite(sd) and sd > 0 and fraction > 0
+    assert psds[0].modes[0][1] >= 0.0918  # as broad as the widest resolved dw_2 below it

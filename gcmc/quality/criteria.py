@@ -1077,8 +1077,16 @@ def default_psds(res: ResolvingPower) -> tuple[SyntheticPSD, ...]:
     g = inversion_grid(res)
     h = float(g[1] - g[0])
 
+    pairs = np.asarray(res.pair_half_separation_nm, dtype=float)
+
     def sd(c: float, base: float) -> float:
-        return max(base, MIN_MODE_STEPS * h, res.pair_at(min(max(c, lo), hi)))
+        pair = res.pair_at(min(max(c, lo), hi))
+        if not np.isfinite(pair):
+            # between a resolved and an unresolved width dw_2 interpolates to infinity: take
+            # the largest finite dw_2 at or below c (the mode is then as broad as resolvable)
+            ok = np.isfinite(pairs) & (w <= c)
+            pair = float(pairs[ok].max()) if ok.any() else 0.0
+        return max(base, MIN_MODE_STEPS * h, pair)
 
     c1 = lo + 0.2 * r
     s1 = sd(c1, 0.06 * r)
