@@ -58,6 +58,10 @@ def test_deprecated_option_names_are_hidden_and_still_work(
     args = sub["check"].parse_args([str(tiny_kernel.path), "--target-rel-error", "0.05"])
     assert args.target_rel_stderr == 0.05
     assert "--target-rel-error is deprecated; use --target-rel-stderr" in capsys.readouterr().err
+    assert "--plan-only" in sub["build"].format_help()
+    assert "--check-only" not in sub["build"].format_help()
+    assert sub["build"].parse_args(["c.toml", "--check-only"]).plan_only is True
+    assert "--check-only is deprecated; use --plan-only" in capsys.readouterr().err
     args = sub["point"].parse_args(["--temperature", "300", "--probe-file", "x.toml"])
     assert args.probe_library == "x.toml"
     assert "--probe-file is deprecated; use --probe-library" in capsys.readouterr().err
@@ -154,7 +158,7 @@ def test_show_counts_the_unconverged_points(tiny_kernel, capsys) -> None:  # noq
     assert main(["show", str(tiny_kernel.path)]) == 0
     out = capsys.readouterr().out
     line = next(x for x in out.splitlines() if "adsorption:" in x)
-    assert line.rstrip().endswith(f"{expected} not converged"), line
+    assert line.rstrip().endswith(f"{expected} unconverged"), line
     assert "wall-clock" in out
 
 

@@ -8,6 +8,8 @@ from collections import Counter
 
 import numpy as np
 
+from gcmc.cli.common import DeprecatedAlias
+
 HELP = """Build a kernel from a TOML run config: for every temperature and pore width, run a
 pressure ladder of GCMC state points (each starting from the previous equilibrated
 configuration), fit each isotherm to a correlating form, and write a versioned HDF5 kernel
@@ -32,9 +34,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     p.add_argument(
-        "--check-only",
+        "--plan-only",
         action="store_true",
         help="validate the config and print the plan, simulate nothing",
+    )
+    p.add_argument(
+        "--check-only", dest="plan_only", action=DeprecatedAlias, nargs=0, new="--plan-only"
     )
     p.set_defaults(func=run)
 
@@ -51,7 +56,7 @@ def run(args: argparse.Namespace) -> int:
             args.config,
             workers=args.workers,
             progress=not args.no_progress,
-            plan_only=args.check_only,
+            plan_only=args.plan_only,
             on_plan=_print_plan,
         )
     except InputError as exc:

@@ -44,4 +44,4 @@ class DeprecatedAlias(argparse.Action):
             f"{parser.prog}: warning: {option_string} is deprecated; use {self.new}",
             file=sys.stderr,
         )
-        setattr(namespace, self.dest, values)
+        setattr(namespace, self.dest, True if self.nargs == 0 else values)

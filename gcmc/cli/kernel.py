@@ -197,7 +197,7 @@ def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
         add(
             "points" if branch == next(iter(d.points)) else "",
             f"{branch}: {simulated} simulated, {flagged} flagged ({detail}), "
-            f"{not_conv} not converged",
+            f"{not_conv} unconverged",
         )
     acc = np.asarray(d.accessible, dtype=bool)
     smallest = []
