@@ -16,8 +16,8 @@ Examples
 --------
 >>> import gcmc.api as g
 >>> run = g.run_point("argon", 87.3, pressure_Pa=10.0, width_H_nm=1.2)  # doctest: +SKIP
->>> run.density_per_nm3, run.converged  # doctest: +SKIP
-(20.9..., True)
+>>> round(run.density_per_nm3, 2), run.converged  # doctest: +SKIP
+(0.56, True)
 """
 
 from __future__ import annotations
@@ -165,7 +165,7 @@ def run_point(
     width_w_nm: float | None = None,
     bulk: bool = False,
     eos: str | None = None,
-    moves: int = 200_000,
+    moves: int = 1_000_000,
     replicas: int = 2,
     insertion_trials: int = 0,
     seed: int = 12345,
@@ -206,7 +206,7 @@ def run_point(
         ``"reference"`` where the probe has one, else ``"lennard-jones"``.
     moves : int, optional
         Trial moves per replica (the first fifth equilibrates); at least 10 000. Default
-        200 000.
+        1 000 000 (as ``gcmc point --moves``).
     replicas : int, optional
         Independent replicas (default 2: the second starts over-filled, and replicas that
         disagree flag the point unconverged; 1 skips that check).
@@ -243,9 +243,10 @@ def run_point(
     >>> from gcmc.api import run_point
     >>> run = run_point("methane", 298.15, pressure_Pa=2e6, width_H_nm=1.2,
     ...                 moves=60_000)  # doctest: +SKIP
-    >>> run.converged, round(run.density_per_nm3, 1)  # doctest: +SKIP
-    (True, 7.9)
-    >>> dense = run_point("argon", 239.6, fugacity_Pa=7e8, bulk=True)  # doctest: +SKIP
+    >>> round(run.density_per_nm3, 1), run.converged, run.flags[0][:15]  # doctest: +SKIP
+    (8.4, False, 'error_unreliabl')
+    >>> dense = run_point("argon", 239.6, fugacity_Pa=7e8, bulk=True,
+    ...                   moves=20_000)  # doctest: +SKIP
     >>> dense.pressure_Pa, dense.notes[0][:22]  # doctest: +SKIP
     (nan, 'pressure, bulk density')
     """
@@ -480,8 +481,10 @@ def check_kernel(
     >>> from gcmc.api import check_kernel
     >>> checked = check_kernel("runs/quickstart/quickstart-methane-298K.v1.h5",
     ...                        realisations=4)  # doctest: +SKIP
-    >>> checked.verdict, [c.key for c in checked.criteria][:3]  # doctest: +SKIP
-    ('warn', ['point_errors', 'point_flags', 'monotonic'])
+    >>> [c.key for c in checked.criteria][:3]  # doctest: +SKIP
+    ['point_errors', 'point_flags', 'monotonic']
+    >>> checked.passed == (checked.verdict != "fail")  # doctest: +SKIP
+    True
     """
     from gcmc.quality.criteria import CheckSettings, run_checks
     from gcmc.quality.resolution import NoiseModel
@@ -595,8 +598,10 @@ def diff_kernels(
     --------
     >>> from gcmc.api import diff_kernels
     >>> d = diff_kernels("runs/a/k.v1.h5", "runs/a/k.v2.h5")  # doctest: +SKIP
-    >>> d.agree, d.changes[:1]  # doctest: +SKIP
-    (True, [('kernel', 'version', '1', '2')])
+    >>> d.changes[0]  # doctest: +SKIP
+    ('kernel', 'version', '1', '2')
+    >>> d.agree == (d.largest_sigma <= d.max_sigma)  # doctest: +SKIP
+    True
     """
     from gcmc.quality.diff import diff_kernels as _diff
 
