@@ -50,10 +50,12 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _one_line_warning(command: str):  # noqa: ANN202
-    def fmt(message, category, filename, lineno, line=None) -> str:  # noqa: ANN001
-        return f"gcmc {command}: warning: {message}\n"
+    """A warnings.showwarning that prints "gcmc COMMAND: warning: message" on stderr."""
 
-    return fmt
+    def show(message, category, filename, lineno, file=None, line=None) -> None:  # noqa: ANN001
+        print(f"gcmc {command}: warning: {message}", file=sys.stderr)
+
+    return show
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -66,7 +68,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default", FutureWarning)
-            warnings.formatwarning = _one_line_warning(args.command)
+            warnings.showwarning = _one_line_warning(args.command)
             return int(args.func(args) or 0)
     except InputError as exc:
         print(f"gcmc {args.command}: error: {exc}", file=sys.stderr)
