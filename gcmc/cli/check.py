@@ -10,7 +10,7 @@ import math
 import sys
 from pathlib import Path
 
-from gcmc.cli.common import DeprecatedAlias, HelpFormatter
+from gcmc.cli.common import DeprecatedAlias, HelpFormatter, read_number_file
 from gcmc.errors import InputError
 
 CHECK_HELP = """Check a kernel before it is used to invert isotherms. Per temperature and pore
@@ -162,31 +162,8 @@ def _positive(name: str, value: float | None, allow_zero: bool = False) -> None:
 
 def read_pressure_file(path: str) -> list[float]:
     """Pressures (Pa) from a text file: numbers separated by white space or commas, '#'
-    comments. InputError naming the file for anything else."""
-    p = Path(path)
-    try:
-        text = p.read_text()
-    except OSError as exc:
-        raise InputError(f"--pressures-Pa {path}: cannot read ({exc.strerror or exc})") from None
-    values = []
-    for lineno, line in enumerate(text.splitlines(), 1):
-        line = line.split("#", 1)[0]
-        for tok in line.replace(",", " ").split():
-            try:
-                v = float(tok)
-            except ValueError:
-                raise InputError(
-                    f"--pressures-Pa {path}: line {lineno}: {tok!r} is not a number"
-                ) from None
-            if not math.isfinite(v) or v <= 0:
-                raise InputError(
-                    f"--pressures-Pa {path}: line {lineno}: pressure {tok} must "
-                    "be finite and > 0 Pa"
-                )
-            values.append(v)
-    if len(values) < 2:
-        raise InputError(f"--pressures-Pa {path}: need at least 2 pressures, found {len(values)}")
-    return values
+    comments, at least two. InputError naming the file for anything else."""
+    return [float(x) for x in read_number_file(path, "--pressures-Pa", " Pa", minimum=2)]
 
 
 def run_check(args: argparse.Namespace) -> int:

@@ -1,10 +1,17 @@
-"""Pieces shared by the sub-commands: the help formatter and deprecated option aliases."""
+"""Pieces shared by the sub-commands: the help formatter, deprecated option aliases and the
+reader of number files (pressures, widths)."""
 
 from __future__ import annotations
 
 import argparse
+import math
 import sys
+from pathlib import Path
 from typing import Any
+
+import numpy as np
+
+from gcmc.errors import InputError
 
 
 class HelpFormatter(argparse.RawDescriptionHelpFormatter):
@@ -45,3 +52,31 @@ class DeprecatedAlias(argparse.Action):
             file=sys.stderr,
         )
         setattr(namespace, self.dest, True if self.nargs == 0 else values)
+
+
+def read_number_file(path: str, option: str, unit: str, minimum: int = 1) -> np.ndarray:
+    """Positive numbers from a text file (separated by white space, commas or new lines; '#'
+    starts a comment): at least ``minimum`` of them, else an InputError naming the option,
+    the file and the line. ``unit`` (e.g. " Pa") is shown in the range message."""
+    p = Path(path)
+    try:
+        text = p.read_text()
+    except OSError as exc:
+        raise InputError(f"{option} {path}: cannot read ({exc.strerror or exc})") from None
+    values = []
+    for lineno, line in enumerate(text.splitlines(), 1):
+        for tok in line.split("#", 1)[0].replace(",", " ").split():
+            try:
+                v = float(tok)
+            except ValueError:
+                raise InputError(
+                    f"{option} {path}: line {lineno}: {tok!r} is not a number"
+                ) from None
+            if not math.isfinite(v) or v <= 0:
+                raise InputError(
+                    f"{option} {path}: line {lineno}: {tok} must be finite and > 0{unit}"
+                )
+            values.append(v)
+    if len(values) < minimum:
+        raise InputError(f"{option} {path}: need at least {minimum}, found {len(values)}")
+    return np.array(values)

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from gcmc.cli.common import HelpFormatter
+from gcmc.cli.common import HelpFormatter, read_number_file
 from gcmc.errors import InputError
 
 SHOW_HELP = """Verify a kernel file (schema version and checksums) and print a summary: model,
@@ -382,35 +382,6 @@ def _json_default(o: object) -> object:
 # --------------------------------------------------------------------------------------------
 # the kernel matrix on the user's pressures and widths
 # --------------------------------------------------------------------------------------------
-def read_number_file(path: str, option: str, unit: str) -> np.ndarray:
-    """Positive numbers from a text file (separated by white space, commas or new lines; '#'
-    starts a comment); an InputError naming the option, file and line otherwise."""
-    import math
-
-    p = Path(path)
-    try:
-        text = p.read_text()
-    except OSError as exc:
-        raise InputError(f"{option} {path}: cannot read ({exc.strerror or exc})") from None
-    values = []
-    for lineno, line in enumerate(text.splitlines(), 1):
-        for tok in line.split("#", 1)[0].replace(",", " ").split():
-            try:
-                v = float(tok)
-            except ValueError:
-                raise InputError(
-                    f"{option} {path}: line {lineno}: {tok!r} is not a number"
-                ) from None
-            if not math.isfinite(v) or v <= 0:
-                raise InputError(
-                    f"{option} {path}: line {lineno}: {tok} must be finite and > 0{unit}"
-                )
-            values.append(v)
-    if not values:
-        raise InputError(f"{option} {path}: no numbers found")
-    return np.array(values)
-
-
 @dataclass
 class MatrixTable:
     """The kernel matrix on given pressures and widths, as `gcmc export --matrix` writes it.
