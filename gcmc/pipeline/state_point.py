@@ -239,8 +239,9 @@ def bulk_reservoir(
         try:
             bulk = model.state_from_fugacity(t, f)
         except InputError as exc:
+            why = str(exc).removeprefix("fugacity_Pa: ")
             notes.append(
-                f"pressure, bulk density, excess density and isosteric heat unavailable: {exc}; "
+                f"pressure, bulk density, excess density and isosteric heat unavailable: {why}; "
                 "the point is simulated at the given fugacity"
             )
             state = ThermoState(
