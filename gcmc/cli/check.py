@@ -9,6 +9,7 @@ import json
 import math
 import sys
 from pathlib import Path
+from typing import Any
 
 from gcmc.cli.common import DeprecatedAlias, HelpFormatter, read_number_file
 from gcmc.errors import InputError
@@ -26,7 +27,13 @@ a reference regularised inversion -> recovered volumes and modes. Each criterion
 warn or fail with its thresholds, or info where it only reports numbers (no threshold applies,
 e.g. no desorption branch for the hysteresis check; info never changes the exit code). The
 experiment's noise is sigma = sqrt((R n)^2 + A^2) (relative and absolute parts combined in
-quadrature). Exit code 1 if any criterion fails, 0 otherwise, 2 on bad input."""
+quadrature). Exit code 1 if any criterion fails, 0 otherwise, 2 on bad input.
+
+With several kernels: check them as a set for one joint inversion (consistency of solid model
+and conventions, smallest accessible width per probe, the resolving power of the stacked
+noise-weighted kernel matrices against each member alone, a joint round trip, and each
+member's own checks); --experiments gives each member its own pressures and noise, and
+--plan-widths ranks kernels by the resolution they add at given widths."""
 
 DIFF_HELP = """Compare two kernels of the same probe: what changed in the model, the equation of
 state and the grids, and, per width, the largest deviation between them in units of the
@@ -43,7 +50,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         description=CHECK_HELP,
         formatter_class=HelpFormatter,
     )
-    c.add_argument("kernel", metavar="KERNEL", help="a kernel file (<name>.v<version>.h5)")
+    c.add_argument(
+        "kernel",
+        metavar="KERNEL",
+        nargs="+",
+        help="a kernel file (<name>.v<version>.h5); several: check them as a set",
+    )
     c.add_argument(
         "--target-rel-stderr",
         type=float,
@@ -131,6 +143,9 @@ def register(sub: argparse._SubParsersAction) -> None:
         "--report", metavar="DIR", help="write plots (PNG and PDF) and check.json into DIR"
     )
     o.add_argument("--json", action="store_true", help="print one JSON object")
+    from gcmc.cli.check_set import add_arguments as _set_arguments
+
+    _set_arguments(c)
     c.set_defaults(func=run_check)
 
     d = sub.add_parser(
@@ -166,13 +181,8 @@ def read_pressure_file(path: str) -> list[float]:
     return [float(x) for x in read_number_file(path, "--pressures-Pa", " Pa", minimum=2)]
 
 
-def run_check(args: argparse.Namespace) -> int:
-    import numpy as np
-
-    from gcmc.kernel.reader import open_kernel
-    from gcmc.quality.criteria import CheckSettings, format_table, run_checks
-    from gcmc.quality.resolution import NoiseModel
-
+def validate_common(args: argparse.Namespace) -> None:
+    """The checks of the options shared by the single and the set check."""
     _positive("target-rel-stderr", args.target_rel_stderr)
     _positive("noise-rel", args.noise_rel, allow_zero=True)
     _positive("noise-abs-mmol-cm3", args.noise_abs_mmol_cm3, allow_zero=True)
@@ -184,6 +194,12 @@ def run_check(args: argparse.Namespace) -> int:
         raise InputError(f"--realisations: need at least 2, got {args.realisations}")
     if args.noise_rel == 0 and args.noise_abs_mmol_cm3 == 0:
         raise InputError("--noise-rel/--noise-abs-mmol-cm3: cannot both be 0")
+
+
+def experiment_pressures(args: argparse.Namespace) -> Any:
+    """The experiment's pressures from --pressures-Pa or --p-range (None: the kernel's own)."""
+    import numpy as np
+
     pressures = None
     if args.pressures_Pa is not None:
         pressures = np.array(read_pressure_file(args.pressures_Pa))
@@ -196,9 +212,24 @@ def run_check(args: argparse.Namespace) -> int:
         if args.p_points < 2:
             raise InputError(f"--p-points: need at least 2, got {args.p_points}")
         pressures = np.geomspace(lo, hi, args.p_points)
+    return pressures
+
+
+def run_check(args: argparse.Namespace) -> int:
+    from gcmc.cli.check_set import run_check_set, wants_set
+    from gcmc.kernel.reader import open_kernel
+    from gcmc.quality.criteria import CheckSettings, format_table, run_checks
+    from gcmc.quality.resolution import NoiseModel
+
+    if wants_set(args):
+        return run_check_set(args)
+    if args.skip_member_checks:
+        raise InputError("--skip-member-checks: only for a set of kernels")
+    validate_common(args)
+    pressures = experiment_pressures(args)
     if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
         raise InputError(f"--report {args.report}: exists and is not a folder")
-    kernel = open_kernel(args.kernel)
+    kernel = open_kernel(args.kernel[0])
     temps = None if args.temperature is None else (float(args.temperature),)
     if temps is not None:
         kernel.temperature_index(temps[0])  # InputError naming the kernel's temperatures
