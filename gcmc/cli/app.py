@@ -23,6 +23,7 @@ _MODULES = {
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``gcmc`` command, with every subcommand registered."""
     parser = argparse.ArgumentParser(
         prog="gcmc",
         description=(

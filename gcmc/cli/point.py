@@ -38,6 +38,7 @@ OPTION_NAMES = {
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``point`` subcommand."""
     p = sub.add_parser(
         "point",
         help="simulate one state point",
@@ -134,6 +135,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``gcmc point``: simulate one state point and print it; the exit code."""
     from gcmc.api import PointRun
     from gcmc.pipeline.state_point import (
         bulk_reservoir,
