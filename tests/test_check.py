@@ -314,7 +314,7 @@ def test_unconverged_and_flagged_points(good) -> None:
 
 
 def test_point_errors_against_target(good) -> None:
-    rep = run_checks(good, dataclasses.replace(HEALTH_ONLY, target_rel_error=0.005))
+    rep = run_checks(good, dataclasses.replace(HEALTH_ONLY, target_rel_stderr=0.005))
     c = rep.criterion("point_errors")
     # stated errors 0.8 % > 0.5 % target but < 3 x target: warn
     assert c.verdict == "warn" and c.data["worst"] == pytest.approx(REL_ERR, rel=0.3)

@@ -7,7 +7,7 @@ References beside each check:
   configuration computed from scratch (an identity of the algorithm; 1e-9 relative allows for
   the rounding of ~1e5 accumulated floating-point increments, each exact to ~1e-16 relative);
 - Lennard-Jones 12-6 pair energy (Jones, Proc. R. Soc. Lond. A 106 (1924) 463, the usual form);
-- Steele 10-4-3 wall (Steele, Surf. Sci. 36 (1973) 317), in the form of CONVENTIONS.md;
+- Steele 10-4-3 wall (Steele, Surf. Sci. 36 (1973) 317), one term per wall;
 - homogeneous long-range correction U_tail = (N^2/2V) int_rc^inf 4 pi r^2 u(r) dr
   (Allen & Tildesley, Computer Simulation of Liquids), evaluated here by quadrature;
 - slab tail correction: the pair tail between laterally smeared molecules,
@@ -228,7 +228,7 @@ def test_lj_pair_and_homogeneous_tail_of_two_molecules() -> None:
 
 def test_wall_energy_is_steele_10_4_3_of_both_walls() -> None:
     """One molecule in a slit: U_sf(z) = V(z) + V(H - z), with V the Steele 10-4-3 form
-    (Steele 1973; CONVENTIONS.md) and Lorentz-Berthelot eps_sf, sigma_sf."""
+    (Steele 1973) and Lorentz-Berthelot eps_sf, sigma_sf."""
     probe = get_probe("argon")
     solid = default_solid()
     h = 1.4
@@ -350,7 +350,7 @@ def test_coincident_positions_are_an_overlap(geometry: str) -> None:
 
 def test_simulate_point_is_deterministic_in_its_seed() -> None:
     """The result is a pure function of (model, state, settings, seed): same seed, same numbers
-    (CONVENTIONS: reproducible streams); a different seed gives a different trajectory."""
+    (reproducible streams: common practice); a different seed gives a different trajectory."""
     model = methane_slit(1.0)
     state = ThermoState(temperature_K=298.15, fugacity_Pa=1.0e6)
     settings = SamplingSettings(

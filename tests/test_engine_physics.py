@@ -18,7 +18,8 @@ Each check names its reference beside it:
 - zero loading of a pore that cannot admit the probe, and the bulk density at the centre of a
   wide pore (exact limits of the model, bulk from the Thol et al. EOS);
 - the cutoff policy: 3 sigma with the slab tail (Janecek, J. Phys. Chem. B 110 (2006) 6264)
-  against 5 sigma (CONVENTIONS.md: two cutoffs, same loading within error).
+  against 5 sigma (two cutoffs, the same loading within error: the slab tail stands in for
+  the interactions beyond r_c, Janecek 2006).
 
 All runs have fixed seeds, so every test is deterministic. Statistical tolerances are k
 standard errors from the run's own block-averaged error (Flyvbjerg & Petersen 1989, via
@@ -704,7 +705,8 @@ def loading(
 def test_default_cutoff_with_slab_tail_matches_longer_cutoff() -> None:
     """Dense supercritical methane (298.15 K, f = 20 MPa, rho sigma^3 ~ 0.6) in a 1.6 nm
     pore: r_c = 3 sigma with the slab tail (the default) and r_c = 5 sigma give the same loading
-    within 3 combined standard errors (CONVENTIONS.md). Without the tail, 3 sigma loses ~1.5 %,
+    within 3 combined standard errors (Janecek 2006: the slab tail stands in for the
+    interactions beyond r_c). Without the tail, 3 sigma loses ~1.5 %,
     resolved here at > 3 standard errors: the comparison can see a missing tail."""
     args = ("methane", 298.15, 2.0e7, 1.6)
     default = loading(*args, 3.0, True, 4_000_000, 21).result

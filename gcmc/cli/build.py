@@ -8,6 +8,8 @@ from collections import Counter
 
 import numpy as np
 
+from gcmc.cli.common import DeprecatedAlias
+
 HELP = """Build a kernel from a TOML run config: for every temperature and pore width, run a
 pressure ladder of GCMC state points (each starting from the previous equilibrated
 configuration), fit each isotherm to a correlating form, and write a versioned HDF5 kernel
@@ -33,9 +35,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     p.add_argument(
-        "--check-only",
+        "--plan-only",
         action="store_true",
         help="validate the config and print the plan, simulate nothing",
+    )
+    p.add_argument(
+        "--check-only", dest="plan_only", action=DeprecatedAlias, nargs=0, new="--plan-only"
     )
     p.set_defaults(func=run)
 
@@ -53,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
             args.config,
             workers=args.workers,
             progress=not args.no_progress,
-            plan_only=args.check_only,
+            plan_only=args.plan_only,
             on_plan=_print_plan,
         )
     except InputError as exc:
@@ -150,7 +155,7 @@ def _summary(result) -> None:
             )
         )
     rows.append(("forms used", ", ".join(f"{k} x{v}" for k, v in forms.most_common())))
-    rows.append(("CPU time in tasks", f"{float(np.sum(data.task_seconds)):.1f} s"))
+    rows.append(("task wall-clock, summed", f"{float(np.sum(data.task_seconds)):.1f} s"))
     rows.append(("wall time", f"{seconds:.1f} s"))
     width = max(len(r[0]) for r in rows)
     print("\n".join(f"  {k:<{width}}  {v}" for k, v in rows))

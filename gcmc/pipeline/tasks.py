@@ -200,7 +200,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             )
             for k in range(n_p)
         ]
-        if cfg.sampling.exchange:  # replica exchange along the ladder (gcmc.sampling.ladder)
+        if cfg.sampling.replica_exchange:  # configuration swaps along the ladder (sampling.ladder)
             from gcmc.sampling.ladder import simulate_ladder
 
             ladder = simulate_ladder(
@@ -213,7 +213,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             )
         for k in order:
             state = states[k]
-            if cfg.sampling.exchange:
+            if cfg.sampling.replica_exchange:
                 out = ladder.points[k]
             else:
                 out = simulate_point(

@@ -230,7 +230,7 @@ class RoundTrip:
 class CheckSettings:
     """Options of :func:`run_checks` (the CLI's options, with the same defaults)."""
 
-    target_rel_error: float = 0.02
+    target_rel_stderr: float = 0.02
     noise: NoiseModel = field(default_factory=NoiseModel)
     pressures_Pa: np.ndarray | None = None  # None: the kernel's own at each temperature
     temperatures_K: tuple[float, ...] | None = None  # None: every kernel temperature
@@ -244,8 +244,11 @@ class CheckSettings:
 
     def validate(self) -> None:
         """Raise InputError naming the first setting out of range."""
-        if not (np.isfinite(self.target_rel_error) and self.target_rel_error > 0):
-            raise InputError(f"--target-rel-error: must be > 0, got {self.target_rel_error}")
+        if not (np.isfinite(self.target_rel_stderr) and self.target_rel_stderr > 0):
+            raise InputError(
+                f"target_rel_stderr (--target-rel-stderr): must be > 0, got "
+                f"{self.target_rel_stderr}"
+            )
         if self.realisations < 2:
             raise InputError(f"realisations: need at least 2, got {self.realisations}")
         if not (np.isfinite(self.pore_volume_cm3_g) and self.pore_volume_cm3_g > 0):
@@ -296,7 +299,7 @@ class CheckReport:
                 },
                 "verdict": self.verdict,
                 "settings": {
-                    "target_rel_error": s.target_rel_error,
+                    "target_rel_stderr": s.target_rel_stderr,
                     "noise": {
                         "relative": s.noise.relative,
                         "absolute_mmol_cm3": s.noise.absolute_mmol_cm3,
@@ -431,7 +434,7 @@ def _lagrange(xs: np.ndarray, ys: np.ndarray, x: float) -> np.ndarray:
 def check_point_errors(kernel: Kernel, settings: CheckSettings, ts: list[int]) -> Criterion:
     """``point_errors``: relative standard errors of the points against the target."""
     data = kernel.data
-    target = settings.target_rel_error
+    target = settings.target_rel_stderr
     floor = settings.noise.absolute_mmol_cm3 / MMOL_PER_CM3_PER_NM3
     pts = data.points["adsorption"]
     n = np.asarray(pts["density_per_nm3"], float)
@@ -1099,8 +1102,16 @@ def default_psds(res: ResolvingPower) -> tuple[SyntheticPSD, ...]:
     g = inversion_grid(res)
     h = float(g[1] - g[0])
 
+    pairs = np.asarray(res.pair_half_separation_nm, dtype=float)
+
     def sd(c: float, base: float) -> float:
-        return max(base, MIN_MODE_STEPS * h, res.pair_at(min(max(c, lo), hi)))
+        pair = res.pair_at(min(max(c, lo), hi))
+        if not np.isfinite(pair):
+            # between a resolved and an unresolved width dw_2 interpolates to infinity: take
+            # the largest finite dw_2 at or below c (the mode is then as broad as resolvable)
+            ok = np.isfinite(pairs) & (w <= c)
+            pair = float(pairs[ok].max()) if ok.any() else 0.0
+        return max(base, MIN_MODE_STEPS * h, pair)
 
     c1 = lo + 0.2 * r
     s1 = sd(c1, 0.06 * r)

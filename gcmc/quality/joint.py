@@ -1033,7 +1033,7 @@ def set_round_trip_criterion(
 class SetSettings:
     """Options of :func:`run_set_checks` (the CLI's, with the same defaults)."""
 
-    target_rel_error: float = 0.02
+    target_rel_stderr: float = 0.02
     chi2_threshold: float = DEFAULT_CHI2_THRESHOLD
     resolution_fraction: float = DEFAULT_RESOLUTION_FRACTION
     realisations: int = 12
@@ -1046,7 +1046,7 @@ class SetSettings:
     def validate(self) -> None:
         """Raise InputError naming the first setting out of range."""
         CheckSettings(
-            target_rel_error=self.target_rel_error,
+            target_rel_stderr=self.target_rel_stderr,
             realisations=self.realisations,
             pore_volume_cm3_g=self.pore_volume_cm3_g,
             inversion_method=self.inversion_method,
@@ -1060,7 +1060,7 @@ def member_health(members: list[Member], settings: SetSettings) -> Criterion:
         rep = run_checks(
             m.kernel,
             CheckSettings(
-                target_rel_error=settings.target_rel_error,
+                target_rel_stderr=settings.target_rel_stderr,
                 noise=m.noise,
                 pressures_Pa=m.experiment.pressures_Pa,
                 temperatures_K=(m.temperature_K,),
@@ -1149,7 +1149,7 @@ class SetReport:
                 ],
                 "verdict": self.verdict,
                 "settings": {
-                    "target_rel_error": s.target_rel_error,
+                    "target_rel_stderr": s.target_rel_stderr,
                     "chi2_threshold": s.chi2_threshold,
                     "resolution_fraction": s.resolution_fraction,
                     "realisations": s.realisations,

@@ -21,11 +21,18 @@ import numpy as np
 from matplotlib.ticker import MaxNLocator
 
 from gcmc.quality.joint import JointResolution, JointRoundTrip, SetReport
-from gcmc.quality.report import new_figure, report_folder, save_figure, write_json
+from gcmc.quality.report import (
+    PALETTE,
+    SERIES_COLOURS,
+    new_figure,
+    report_folder,
+    save_figure,
+    write_json,
+)
 
-_SET_COLOUR = "#0969da"
-_MEMBER_COLOURS = ("#cf222e", "#8250df", "#1a7f37", "#bc4c00", "#57606a", "#b08800")
-_VERDICT_COLOUR = {"pass": "#1a7f37", "info": "#57606a", "warn": "#b08800", "fail": "#cf222e"}
+_SET_COLOUR = PALETTE["line"]
+_MEMBER_COLOURS = SERIES_COLOURS
+_VERDICT_COLOUR = {k: PALETTE[k] for k in ("pass", "info", "warn", "fail")}
 
 
 def _colour(i: int) -> str:
@@ -100,7 +107,9 @@ def plot_gain(ax_top, ax_bottom, jr: JointResolution) -> None:
     only = jr.only_set
     if only.size:
         idx = np.searchsorted(w, only)
-        ax_bottom.plot(only, g[idx], "*", ms=8, color="#cf222e", label="resolved only by the set")
+        ax_bottom.plot(
+            only, g[idx], "*", ms=8, color=PALETTE["fail"], label="resolved only by the set"
+        )
         ax_bottom.legend(fontsize=7, loc="upper right")
     ax_bottom.set_yscale("log")
     ax_bottom.set_xlabel("pore width w (nm)")
@@ -126,7 +135,9 @@ def plot_joint_round_trip(ax, rt: JointRoundTrip) -> None:
     ax.plot(rt.widths_nm, rt.true_psd, "k--", lw=1.0, label="synthetic")
     state = rt.verdict if rt.resolvable else "not resolvable"
     ax.set_title(
-        f"{rt.psd.name}: set {state}", fontsize=8, color=_VERDICT_COLOUR.get(rt.verdict, "#57606a")
+        f"{rt.psd.name}: set {state}",
+        fontsize=8,
+        color=_VERDICT_COLOUR.get(rt.verdict, PALETTE["info"]),
     )
     ax.set_xlabel("pore width w (nm)")
     ax.set_ylabel("PSD (cm$^3$/g/nm)")

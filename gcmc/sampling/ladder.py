@@ -7,7 +7,8 @@ neighbouring activities are attempted, on the even pairs (0,1), (2,3), ... after
 and on the odd pairs (1,2), (3,4), ... after odd rounds.
 
 Swap acceptance. In the grand canonical ensemble at activity z (z = beta f, the kinetic factor
-cancels, see CONVENTIONS.md) and volume V, a configuration x of N molecules has the weight
+cancels: the activity absorbs
+the thermal wavelength) and volume V, a configuration x of N molecules has the weight
 
     P_z(x) = z^N exp(-beta U(x)) / (N! Xi(z)).
 

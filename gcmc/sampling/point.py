@@ -76,8 +76,10 @@ class SamplingSettings:
     agreement_rel: float = 0.01
     cells_per_cutoff: int = 1
     slab_tail: bool = True
-    #: replica exchange between neighbouring pressures of a ladder (gcmc.sampling.ladder)
-    exchange: bool = False
+    #: replica exchange (configuration swaps) between neighbouring pressures of a ladder
+    #: (gcmc.sampling.ladder); not to be confused with the reservoir exchanges (insertions and
+    #: deletions) that the few_exchanges flag counts
+    replica_exchange: bool = False
 
     def validate(self) -> None:
         """Raise InputError naming the first setting out of range."""
