@@ -132,6 +132,10 @@ class PointResult:
     converged: bool
     flags: list[str] = field(default_factory=list)
     pore_volume_nm3: float = float("nan")
+    #: which sampler produced the point: "point" (simulate_point), "exchange" (the pressure
+    #: ladder), "tempering" (a rung of a tempering chain), "certified-tempering"
+    #: (gcmc.sampling.certificate)
+    method: str = "point"
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)

@@ -425,6 +425,7 @@ def simulate_tempering(
     for k, state in enumerate(states):
         out = _analyse(model, state, one, [runs[k]])
         out.result.moves += eq + (eq // 2 if overfill else 0)
+        out.result.method = "tempering"
         below = chain.accepts[k - 1] / chain.attempts[k - 1] if k > 0 else math.nan
         above = chain.accepts[k] / chain.attempts[k] if k < n_pairs else math.nan
         out.result.acceptance["swap_lower"] = float(below)
