@@ -314,7 +314,7 @@ def certify_filled_point(
             p.name = name
         boxp = _prepare("below", big, big_states, big_cs, production, seeds[-1], progress)
         boxp.name = "below, larger box"
-        cert = _verdict(cs, preps, boxp, production, time.process_time() - t_start)
+        cert = judge_preparations(cs, preps, boxp, production, time.process_time() - t_start)
         attempt += 1
         spent = time.process_time() - t_start
         if cert.certified or spent * 3.0 > cs.budget_cpu_s:  # the next (doubled) would exceed
@@ -327,13 +327,17 @@ def certify_filled_point(
         production *= 2
 
 
-def _verdict(
+def judge_preparations(
     cs: CertifySettings,
     preps: list[Preparation],
     boxp: Preparation,
     production: int,
     cpu_s: float,
+    method: str = "certified-tempering",
 ) -> Certificate:
+    """The certificate's verdict on given preparations (criteria 1-4 of the module
+    docstring); any sampler's preparations can be judged (the benchmark judges the point-wise
+    sampler's the same way)."""
     flags: list[str] = []
     dens = np.array([p.density_per_nm3 for p in preps])
     mean = float(dens.mean())
@@ -374,7 +378,7 @@ def _verdict(
         seconds=cpu_s,
         converged=certified,
         flags=list(flags),
-        method="certified-tempering",
+        method=method,
     )
     from gcmc.physics.units import per_nm3_to_mmol_per_cm3
 
@@ -384,7 +388,7 @@ def _verdict(
     result.excess_density_mmol_per_cm3 = per_nm3_to_mmol_per_cm3(result.excess_density_per_nm3)
     return Certificate(
         certified=certified,
-        method="certified-tempering",
+        method=method,
         density_per_nm3=mean,
         density_spread_rel=spread,
         box_difference_rel=float(box_diff),
