@@ -206,8 +206,10 @@ def main() -> None:
                 json.dump(rows, fh, indent=1, default=float)
             os.replace(tmp, args.json)
     print()
-    print("| regime | method | density /nm^3 | spread (4 prep.) | box diff. | renewals (min) "
-          "| required | exchanges / molecule (min) | certified | CPU s |")
+    print(
+        "| regime | method | density /nm^3 | spread (4 prep.) | box diff. | renewals (min) "
+        "| required | exchanges / molecule (min) | certified | CPU s |"
+    )
     print("|---|---|---|---|---|---|---|---|---|---|")
     for r in rows:
         print(

@@ -41,7 +41,9 @@ def _model() -> PoreModel:
 
 
 def _states(z: float = Z) -> list[ThermoState]:
-    return [ThermoState(temperature_K=t, fugacity_Pa=fugacity_pa_from_activity(z, t)) for t in TEMPS]
+    return [
+        ThermoState(temperature_K=t, fugacity_Pa=fugacity_pa_from_activity(z, t)) for t in TEMPS
+    ]
 
 
 def _exact_n(model: PoreModel, t: float, z: float) -> float:
@@ -105,9 +107,7 @@ def test_wrong_swap_rule_is_detected(engine):
     def wrong(ti, tj, zi, zj, ni, nj, ui, uj):  # noqa: ANN001, ANN202
         return L.swap_acceptance(zi, zj, ni, nj)
 
-    out = TP.simulate_tempering(
-        model, _states(), SETTINGS, seed=7, round_moves=20, swap_rule=wrong
-    )
+    out = TP.simulate_tempering(model, _states(), SETTINGS, seed=7, round_moves=20, swap_rule=wrong)
     chi2, zs = _chi2(out, model)
     assert chi2 > 3 * CHI2_4_P001, zs
 

@@ -57,6 +57,14 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="NM",
         help="periodic edge in nm (default: max(2 x cutoff, 10 sigma))",
     )
+    geo.add_argument(
+        "--lateral-box",
+        choices=("square", "hexagonal"),
+        default=None,
+        help="square: max(2 x cutoff, 10 sigma) on both sides; hexagonal: a rectangle holding "
+        "whole rows of a close-packed layer (row spacing 1.1115 sigma); default square, "
+        "hexagonal on the certified path",
+    )
     geo.add_argument("--cutoff", type=float, metavar="NM", help="LJ cutoff in nm (default 3 sigma)")
     geo.add_argument(
         "--epsilon-sf-scale",
@@ -83,6 +91,30 @@ def register(sub: argparse._SubParsersAction) -> None:
         type=int,
         default=0,
         help="trial positions per insertion (1 plain, k > 1 biased, 0 automatic)",
+    )
+    m.add_argument(
+        "--method",
+        choices=("auto", "point", "certified"),
+        default="auto",
+        help="point: the point-wise sampler only; certified: certify the point (hyper-parallel "
+        "tempering preparations and a box-size check, gcmc.sampling.certificate); auto: the "
+        "point-wise sampler, then the certified path when the state is a dense subcritical one "
+        "(slit, T < T_c of the probe, pore density rho sigma^3 > 0.5)",
+    )
+    m.add_argument(
+        "--certify-budget",
+        type=float,
+        default=600.0,
+        metavar="S",
+        help="CPU seconds the certified path may spend",
+    )
+    m.add_argument(
+        "--certify-moves",
+        type=int,
+        default=1_000_000,
+        metavar="N",
+        help="production moves per rung of each tempering chain (first attempt; doubled "
+        "while the certificate fails and the budget allows)",
     )
     m.add_argument("--seed", type=int, default=12345, help="random seed")
     p.add_argument("--json", action="store_true", help="print one JSON object")
@@ -113,6 +145,7 @@ def run(args: argparse.Namespace) -> int:
         "epsilon_k",
         "sigma_nm",
         "epsilon_sf_scale",
+        "certify_budget",
     ):
         _finite(name.replace("_", "-"), getattr(args, name))
     if args.width is not None and not math.isfinite(args.width):
@@ -125,6 +158,8 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("--pressure PA or --fugacity PA: give exactly one")
     if args.moves < 10_000:
         raise InputError(f"--moves: at least 10000, got {args.moves}")
+    if args.certify_moves < 10_000:
+        raise InputError(f"--certify-moves: at least 10000, got {args.certify_moves}")
     if args.replicas < 1:
         raise InputError(f"--replicas: at least 1, got {args.replicas}")
     if args.probe:
@@ -145,6 +180,12 @@ def run(args: argparse.Namespace) -> int:
     if cutoff > 0.5 * box:
         raise InputError(f"--cutoff: {cutoff:g} nm is larger than half the box ({box:g} nm)")
     geometry = BULK if args.bulk else SLIT
+    if args.lateral_box is not None and args.bulk:
+        raise InputError("--lateral-box: only for a slit (--width), not with --bulk")
+    if args.lateral_box == "hexagonal" and args.box is not None:
+        raise InputError("--box: not used with --lateral-box hexagonal (the box follows sigma)")
+    if args.method == "certified" and args.bulk:
+        raise InputError("--method certified: only for a slit (--width), not with --bulk")
     model = PoreModel(
         probe=probe,
         solid=solid,
@@ -153,6 +194,12 @@ def run(args: argparse.Namespace) -> int:
         box_nm=box,
         width_nm=args.width or 0.0,
     )
+    if args.lateral_box == "hexagonal" or (
+        args.lateral_box is None and args.method == "certified" and args.box is None
+    ):
+        from gcmc.physics.potentials import with_lateral_box
+
+        model = with_lateral_box(model, "hexagonal")
     if geometry == SLIT and model.internal_width_nm <= 0:
         raise InputError(
             f"--width: H = {args.width} nm is not wider than sigma_ss "
@@ -195,9 +242,34 @@ def run(args: argparse.Namespace) -> int:
         disable=None,
         leave=False,
     ) as bar:
-        outcome = simulate_point(model, state, settings, args.seed, progress=bar.update)
-    r = outcome.result
+        r = None
+        if args.method != "certified":
+            r = simulate_point(model, state, settings, args.seed, progress=bar.update).result
+    certificate = None
+    if args.method == "certified" or (args.method == "auto" and _dense(model, r)):
+        from dataclasses import replace
+
+        from gcmc.sampling.certificate import CertifySettings, certify_filled_point
+
+        cs = replace(
+            CertifySettings(),
+            budget_cpu_s=args.certify_budget,
+            production_moves=args.certify_moves,
+            equilibration_moves=max(args.certify_moves // 5, 1000),
+            insertion_trials=args.insertion_trials,
+        )
+        with tqdm(
+            unit="move", unit_scale=True, desc="certify", file=sys.stderr, disable=None, leave=False
+        ) as bar2:
+            certificate = certify_filled_point(
+                model, state, args.seed, cs, eos, progress=bar2.update
+            )
+        r = certificate.result
+        model = _certified_model(model)
+    assert r is not None
     payload = r.to_dict()
+    if certificate is not None:
+        payload["certificate"] = {k: v for k, v in certificate.to_dict().items() if k != "result"}
     payload["model"] = model.describe(slab_tail=settings.slab_tail)
     payload["compile_or_cache_load_seconds"] = compile_s
     if args.json:
@@ -205,6 +277,22 @@ def run(args: argparse.Namespace) -> int:
         return 0
     _print_summary(model, r, eos.name, compile_s)
     return 0
+
+
+def _dense(model, r) -> bool:  # noqa: ANN001
+    """A dense subcritical slit point: the certified path applies (gcmc.sampling.certificate)."""
+    from gcmc.sampling.certificate import is_dense_subcritical
+
+    if r is None:
+        return False
+    return is_dense_subcritical(model, r.temperature_K, r.density_per_nm3)
+
+
+def _certified_model(model):  # noqa: ANN001, ANN202
+    """The model the certified result refers to (the hexagonal lateral box)."""
+    from gcmc.physics.potentials import with_lateral_box
+
+    return with_lateral_box(model, "hexagonal")
 
 
 def _json_default(o: object) -> object:
@@ -240,7 +328,7 @@ def _print_summary(model, r, eos_name: str, compile_s: float) -> None:  # noqa: 
         "  acceptance           " + ", ".join(f"{k} {v:.3g}" for k, v in r.acceptance.items()),
         f"  moves                {r.moves:12d} in {r.seconds:.2f} s "
         f"({r.moves / max(r.seconds, 1e-9):.3g} moves/s; engine load {compile_s:.1f} s)",
-        f"  converged            {'yes' if r.converged else 'NO'}",
+        f"  converged            {'yes' if r.converged else 'NO'}   (method {r.method})",
     ]
     if r.flags:
         lines.append("  flags: " + "; ".join(r.flags))

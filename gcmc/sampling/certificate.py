@@ -136,16 +136,20 @@ class Certificate:
         return d
 
 
-def is_dense_subcritical(
-    model: PoreModel, state: ThermoState, relative_pressure: float, pore_filling: float
-) -> bool:
+#: pore density rho sigma^3 above which a subcritical point counts as dense: between the LJ
+#: critical density (about 0.31, Thol et al. 2016) and the liquid at the triple point (about
+#: 0.84; both from memory)
+DENSE_FILLING = 0.5
+
+
+def is_dense_subcritical(model: PoreModel, temperature_K: float, density_per_nm3: float) -> bool:
     """Whether a point needs the certified path: a slit below the probe's critical temperature
-    whose pore holds a dense phase (pore density / the close-packed density of the probe,
-    ``pore_filling`` = rho sigma^3, above 0.5: liquid- or solid-like)."""
+    whose pore density (per pore volume) times sigma^3 exceeds DENSE_FILLING (liquid- or
+    solid-like)."""
     tc = model.probe.critical_temperature_K
-    if model.geometry != SLIT or not math.isfinite(tc) or state.temperature_K >= tc:
+    if model.geometry != SLIT or not math.isfinite(tc) or temperature_K >= tc:
         return False
-    return pore_filling > 0.5 and relative_pressure > 0.0
+    return density_per_nm3 * model.probe.sigma_nm**3 > DENSE_FILLING
 
 
 def _hot_states(
@@ -362,7 +366,8 @@ def judge_preparations(
     if not abs(box_diff) <= cs.tolerance:
         flags.append(
             f"box_size_disagrees: {boxp.density_per_nm3:.4g} /nm^3 in "
-            f"{boxp.box_nm[0]:.3f} x {boxp.box_nm[1]:.3f} nm vs {mean:.4g} ({100 * box_diff:+.2f} %)"
+            f"{boxp.box_nm[0]:.3f} x {boxp.box_nm[1]:.3f} nm vs {mean:.4g} "
+            f"({100 * box_diff:+.2f} %)"
         )
     certified = not flags
     r0 = preps[0].result
