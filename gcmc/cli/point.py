@@ -276,7 +276,26 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps(payload, default=_json_default))
         return 0
     _print_summary(model, r, eos.name, compile_s)
+    if certificate is not None:
+        _print_certificate(certificate)
     return 0
+
+
+def _print_certificate(c) -> None:  # noqa: ANN001
+    lines = [
+        "",
+        f"  certificate          {'CERTIFIED' if c.certified else 'not certified'}: "
+        f"spread {100 * c.density_spread_rel:.2f} % over {len(c.preparations)} preparations, "
+        f"box check {100 * c.box_difference_rel:+.2f} %, {c.cpu_s:.0f} CPU s, "
+        f"{c.production_moves} production moves per rung, renewals needed {c.min_renewals}",
+    ]
+    for p in c.preparations + ([c.box_check] if c.box_check else []):
+        lines.append(
+            f"    {p.name:<18} box {p.box_nm[0]:.3f} x {p.box_nm[1]:.3f} nm  "
+            f"N {p.molecules_mean:9.2f}  density {p.density_per_nm3:8.4f} /nm^3  "
+            f"drift z {p.drift_z:5.1f}  renewals {p.renewals:6.1f}"
+        )
+    print("\n".join(lines))
 
 
 def _dense(model, r) -> bool:  # noqa: ANN001

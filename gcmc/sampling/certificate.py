@@ -263,13 +263,18 @@ def _prepare(
 
 
 def required_renewals(preps: list[Preparation], tolerance: float) -> int:
-    """k >= (d_4 sd(N) / (tolerance mean))^2, at least MIN_RENEWALS_FLOOR (module docstring)."""
-    k = MIN_RENEWALS_FLOOR
-    for p in preps:
-        if p.molecules_mean > 0 and math.isfinite(p.molecules_sd):
-            need = (D2_FOUR * p.molecules_sd / (tolerance * p.molecules_mean)) ** 2
-            k = max(k, math.ceil(need))
-    return k
+    """k >= (d_4 sd(N) / (tolerance mean))^2, at least MIN_RENEWALS_FLOOR (module docstring);
+    sd(N)/mean is the median over the preparations (one drifting preparation, whose spread
+    includes its drift, is flagged on its own and does not set the bar for the others)."""
+    rel = [
+        p.molecules_sd / p.molecules_mean
+        for p in preps
+        if p.molecules_mean > 0 and math.isfinite(p.molecules_sd)
+    ]
+    if not rel:
+        return MIN_RENEWALS_FLOOR
+    need = (D2_FOUR * float(np.median(rel)) / tolerance) ** 2
+    return max(MIN_RENEWALS_FLOOR, math.ceil(need))
 
 
 PREPARATIONS = ("below", "overfilled", "annealed", "below-2")
