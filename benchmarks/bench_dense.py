@@ -189,7 +189,14 @@ def main() -> None:
     ap.add_argument("--production", type=int, default=1_000_000, help="per rung, first attempt")
     ap.add_argument("--budget", type=float, default=600.0, help="CPU s per certification")
     ap.add_argument("--json", default=None)
+    ap.add_argument(
+        "--table", nargs="+", default=None, metavar="JSON", help="print the table of saved runs"
+    )
     args = ap.parse_args()
+    if args.table:
+        rows = [r for f in args.table for r in json.loads(open(f).read())]
+        _table(rows)
+        return
     warm_up()
     names = args.regimes.split(",") + (["ar-10s-0.9"] if args.wide else [])
     rows = []
@@ -205,6 +212,11 @@ def main() -> None:
             with open(tmp, "w") as fh:
                 json.dump(rows, fh, indent=1, default=float)
             os.replace(tmp, args.json)
+    _table(rows)
+
+
+def _table(rows: list[dict]) -> None:
+    """The markdown table of benchmarks/README.md, "Dense confined phases"."""
     print()
     print(
         "| regime | method | density /nm^3 | spread (4 prep.) | box diff. | renewals (min) "
