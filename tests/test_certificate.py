@@ -177,3 +177,22 @@ def test_a_mobile_dense_liquid_is_certified(engine):
     cert = C.certify_filled_point(model, state, 5, cs, eos)
     assert cert.density_per_nm3 * model.probe.sigma_nm**3 > C.DENSE_FILLING
     assert cert.certified, cert.flags
+
+
+@pytest.mark.parametrize(
+    ("extra", "field"),
+    [
+        (["--lateral-box", "hexagonal", "--box", "4"], "--box"),
+        (["--certify-moves", "50"], "--certify-moves"),
+        (["--certify-budget", "-1"], "--certify-budget"),
+    ],
+)
+def test_certified_path_bad_input(extra, field, capsys):
+    from gcmc.cli import main
+
+    args = ["point", "--probe", "argon", "--temperature", "87.3", "--pressure", "1e4"]
+    code = main([*args, "--width", "1.0215", "--moves", "20000", "--json", *extra])
+    out, err = capsys.readouterr()
+    assert code == 2 and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and field in lines[0], err
