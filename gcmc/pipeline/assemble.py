@@ -38,6 +38,7 @@ def _library_versions() -> dict[str, str]:
 def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[FitSummary]]:
     from gcmc.kernel.forms import evaluate_fit
     from gcmc.pipeline.fits import fit_isotherm
+    from gcmc.pipeline.heat import heat_kernel
 
     cfg = plan.config
     nt, nw, n_p = len(plan.temperatures), len(cfg.widths_H_nm), len(cfg.pressures.values)
@@ -157,5 +158,12 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
         provenance=provenance,
         task_seeds=seeds,
         task_seconds=seconds,
+        heat=heat_kernel(
+            points["adsorption"]["density_per_nm3"],
+            points["adsorption"]["isosteric_heat_kJ_per_mol"],
+            points["adsorption"]["isosteric_heat_kJ_per_mol_stderr"],
+            accessible,
+            points["adsorption"]["density_per_nm3_stderr"],
+        ),
     )
     return data, summaries
