@@ -354,7 +354,8 @@ def judge_preparations(
 ) -> Certificate:
     """The certificate's verdict on given preparations (criteria 1-4 of the module
     docstring); any sampler's preparations can be judged (the benchmark judges the point-wise
-    sampler's the same way)."""
+    sampler's the same way). The pooled result's ``seconds`` is ``cpu_s`` (process time), its
+    error the standard error of the preparations' mean, ``converged`` the verdict."""
     flags: list[str] = []
     dens = np.array([p.density_per_nm3 for p in preps])
     mean = float(dens.mean())
