@@ -15,7 +15,7 @@
 # as ranks become free. Ranks beyond the number of tasks idle, and the build takes at least as
 # long as its longest task; ask for at most about a quarter as many ranks as there are tasks
 # (benchmarks/README.md, "Scale-out", measured ~90 % or better parallel efficiency from 4
-# tasks per rank). `gcmc build CONFIG --check-only` prints the number of tasks.
+# tasks per rank). `gcmc build CONFIG --plan-only` prints the number of tasks.
 #
 # Adjust the #SBATCH lines to your site (partition, account, cores per node).
 
@@ -48,7 +48,7 @@ echo "$(date -Is) job ${SLURM_JOB_ID} run $((run + 1)) on ${SLURM_JOB_NUM_NODES}
 ${SLURM_NTASKS} rank(s): gcmc build ${CONFIG}"
 
 # Validate the config before asking for ranks (exit 2 with one line naming the field).
-gcmc build "${CONFIG}" --check-only || exit $?
+gcmc build "${CONFIG}" --plan-only || exit $?
 
 step_pid=""
 requeue() {

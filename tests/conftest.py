@@ -38,3 +38,20 @@ def engine() -> float:
     from gcmc.sampling.box import warm_up
 
     return warm_up()
+
+
+@pytest.fixture(scope="session")
+def tiny_kernel(tmp_path_factory: pytest.TempPathFactory, engine: float):
+    """The tiny methane kernel of tests/configs/tiny.toml, built once per session through the
+    Python API in one process (a few seconds); returns the BuildResult."""
+    import shutil
+    from pathlib import Path
+
+    from gcmc.api import build_kernel
+
+    folder = tmp_path_factory.mktemp("tiny")
+    config = folder / "tiny.toml"
+    shutil.copy(Path(__file__).parent / "configs" / "tiny.toml", config)
+    result = build_kernel(config, workers=1)
+    assert result.status == "written", result.status
+    return result

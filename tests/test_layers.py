@@ -1,7 +1,8 @@
 """The layer rule of the package (DEVELOPERS.md, "The architecture in a page").
 
-Each layer imports only the layers below it (cli -> quality -> pipeline -> sampling ->
-{physics, kernel} -> errors), and the kernel file format imports nothing beyond numpy and h5py.
+Each layer imports only the layers below it (cli -> api -> quality -> pipeline -> sampling ->
+{physics, kernel} -> {errors, files}; the command line may use the Python API, nothing below
+uses either), and the kernel file format imports nothing beyond numpy and h5py.
 The static contracts live in pyproject.toml ([tool.importlinter]); the runtime test below
 also catches an import hidden inside a function that the static graph sees too, and a
 third-party package pulled in by a dependency.
@@ -41,8 +42,19 @@ def test_reader_loads_without_numba_or_scipy() -> None:
 
 
 def test_layer_folders_hold_every_module() -> None:
-    """No module sits beside the layers except the shared error type, the package marker and
-    the documented `gcmc.reader` and `gcmc.api` entry points."""
-    allowed = {"__init__.py", "errors.py", "reader.py", "api.py"}
+    """No module sits beside the layers except the shared error type and atomic file writes
+    (the bottom layer), the package marker and the documented `gcmc.reader` and `gcmc.api`
+    entry points."""
+    allowed = {"__init__.py", "errors.py", "files.py", "reader.py", "api.py"}
     loose = sorted(p.name for p in (REPO / "gcmc").glob("*.py") if p.name not in allowed)
     assert loose == []
+
+
+def test_the_api_sits_above_the_layers_it_uses() -> None:
+    """gcmc.api is a layer of the contract, directly under gcmc.cli: nothing below imports
+    it (an upward import breaks the layers contract above), and it is not a loose module."""
+    import tomllib
+
+    cfg = tomllib.loads((REPO / "pyproject.toml").read_text())
+    layers = cfg["tool"]["importlinter"]["contracts"][0]["layers"]
+    assert layers[:3] == ["gcmc.cli", "gcmc.api", "gcmc.quality"]

@@ -648,14 +648,19 @@ def test_export_csv_round_trip(written: Path, demo: KernelData, tmp_path: Path) 
     assert len(ads) == n_finite_p * demo.widths_H_nm.size
     pts = demo.points["adsorption"]
     for r in ads[::7]:
-        t = int(np.flatnonzero(demo.temperatures_K == float(r["temperature_K"]))[0])
-        w = int(np.flatnonzero(demo.widths_H_nm == float(r["width_H_nm"]))[0])
-        i = int(np.flatnonzero(demo.pressures_Pa[t] == float(r["pressure_Pa"]))[0])
-        assert float(r["width_w_nm"]) == demo.widths_w_nm[w]
-        assert float(r["density_per_nm3"]) == pts["density_per_nm3"][t, w, i]
-        assert float(r["density_per_nm3_stderr"]) == pts["density_per_nm3_stderr"][t, w, i]
-        assert float(r["excess_density_per_nm3"]) == pts["excess_density_per_nm3"][t, w, i]
-        assert float(r["isosteric_heat_kJ_per_mol"]) == pts["isosteric_heat_kJ_per_mol"][t, w, i]
+        t = int(np.flatnonzero(np.isclose(demo.temperatures_K, float(r["temperature_K"])))[0])
+        w = int(np.flatnonzero(np.isclose(demo.widths_H_nm, float(r["width_H_nm"])))[0])
+        i = int(np.flatnonzero(np.isclose(demo.pressures_Pa[t], float(r["pressure_Pa"])))[0])
+        # numbers as a person reads them: 12 significant digits (rounding <= 5e-12 relative)
+        assert float(r["width_w_nm"]) == pytest.approx(demo.widths_w_nm[w], rel=5e-12)
+        for name in (
+            "density_per_nm3",
+            "density_per_nm3_stderr",
+            "excess_density_per_nm3",
+            "isosteric_heat_kJ_per_mol",
+        ):
+            assert float(r[name]) == pytest.approx(pts[name][t, w, i], rel=5e-12, nan_ok=True)
+            assert len(r[name].replace("-", "").replace(".", "").lstrip("0").split("e")[0]) <= 12
         assert r["flags"] == demo.flags["adsorption"][t, w, i]
     des = [r for r in rows if r["branch"] == "desorption"]
     assert len(des) == int(np.isfinite(demo.points["desorption"]["density_per_nm3"]).sum())
@@ -669,18 +674,26 @@ def test_export_csv_round_trip(written: Path, demo: KernelData, tmp_path: Path) 
 def test_export_npz_round_trip(written: Path, demo: KernelData, tmp_path: Path) -> None:
     out = tmp_path / "kernel.npz"
     assert cli.main(["export", str(written), "--format", "npz", "--output", str(out)]) == 0
-    with np.load(out, allow_pickle=False) as z:
-        np.testing.assert_array_equal(z["widths_w_nm"], demo.widths_w_nm)
-        np.testing.assert_array_equal(z["pressures_Pa"], demo.pressures_Pa)
+    with np.load(out, allow_pickle=False) as z, h5py.File(written, "r") as f:
+        # the names are the HDF5 paths: every dataset of the file, and nothing else
+        datasets: list[str] = []
+        f.visititems(lambda name, obj: datasets.append(name) if hasattr(obj, "dtype") else None)
+        assert sorted(set(z.files) - {"attributes_json"}) == sorted(datasets)
+        np.testing.assert_array_equal(z["axes/width_w_nm"], demo.widths_w_nm)
+        np.testing.assert_array_equal(z["axes/pressure_Pa"], demo.pressures_Pa)
+        np.testing.assert_array_equal(
+            z["limits/henry_constant_per_nm3_per_Pa"], demo.henry_per_nm3_per_pa
+        )
         for fname in POINT_FIELDS:
             np.testing.assert_array_equal(
-                z[f"points.adsorption.{fname}"], demo.points["adsorption"][fname]
+                z[f"points/adsorption/{fname}"], demo.points["adsorption"][fname]
             )
-        assert z["flags.desorption"].tolist() == demo.flags["desorption"].tolist()
-        assert z["fits.form"][0, 4] == "monotone_interpolant"
-        k = int(z["fits.n_parameters"][1, 3])
-        np.testing.assert_array_equal(z["fits.parameters"][1, 3, :k], demo.fits[1][3].parameters)
-        np.testing.assert_array_equal(z["task_seeds"], demo.task_seeds)
-        meta = json.loads(str(z["metadata_json"]))
-        assert meta["probe"] == demo.probe and meta["provenance"] == demo.provenance
-        assert str(z["config_text"]) == demo.config_text
+        assert z["points/desorption/flags"].tolist() == demo.flags["desorption"].tolist()
+        assert z["fits/form"][0, 4] == "monotone_interpolant"
+        k = int(z["fits/n_parameters"][1, 3])
+        np.testing.assert_array_equal(z["fits/parameters"][1, 3, :k], demo.fits[1][3].parameters)
+        np.testing.assert_array_equal(z["provenance/task_seeds"], demo.task_seeds)
+        attrs = json.loads(str(z["attributes_json"]))
+        assert attrs["/"]["name"] == demo.name and attrs["/"]["version"] == demo.version
+        assert json.loads(str(z["provenance/provenance_json"])) == demo.provenance
+        assert str(z["provenance/config_text"]) == demo.config_text

@@ -109,8 +109,8 @@ def test_point_json_in_process(slit_record: dict) -> None:
 
 
 def test_point_json_records_the_tail_correction_used(slit_record: dict) -> None:
-    """The record must say which tail correction the run used (CONVENTIONS: the kernel says
-    which thing it means): the slab tail (Janecek 2006) in a slit by default."""
+    """The record must say which tail correction the run used (a record names the
+    convention it used): the slab tail (Janecek 2006) in a slit by default."""
     assert "slab" in slit_record["model"]["tail_correction"].lower()
     # regression: the record said "none" for slit pores before commit 683b3cc
 

@@ -6,6 +6,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
 
 from gcmc import __version__
 from gcmc.errors import InputError
@@ -22,6 +23,7 @@ _MODULES = {
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``gcmc`` command, with every subcommand registered."""
     parser = argparse.ArgumentParser(
         prog="gcmc",
         description=(
@@ -48,14 +50,27 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _one_line_warning(command: str):  # noqa: ANN202
+    """A warnings.showwarning that prints "gcmc COMMAND: warning: message" on stderr."""
+
+    def show(message, category, filename, lineno, file=None, line=None) -> None:  # noqa: ANN001
+        print(f"gcmc {command}: warning: {message}", file=sys.stderr)
+
+    return show
+
+
 def main(argv: list[str] | None = None) -> int:
+    """Run the command line; returns the exit code (0 ok, 1 a judged failure, 2 bad input)."""
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "command", None):
         parser.print_help()
         return 2
     try:
-        return int(args.func(args) or 0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("default", FutureWarning)
+            warnings.showwarning = _one_line_warning(args.command)
+            return int(args.func(args) or 0)
     except InputError as exc:
         print(f"gcmc {args.command}: error: {exc}", file=sys.stderr)
         return 2

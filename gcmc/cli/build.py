@@ -8,6 +8,8 @@ from collections import Counter
 
 import numpy as np
 
+from gcmc.cli.common import DeprecatedAlias
+
 HELP = """Build a kernel from a TOML run config: for every temperature and pore width, run a
 pressure ladder of GCMC state points (each starting from the previous equilibrated
 configuration), fit each isotherm to a correlating form, and write a versioned HDF5 kernel
@@ -17,6 +19,7 @@ command after an interruption and the build continues where it stopped. Under
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``build`` subcommand."""
     p = sub.add_parser(
         "build",
         help="build a kernel from a run config",
@@ -32,14 +35,18 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     p.add_argument(
-        "--check-only",
+        "--plan-only",
         action="store_true",
         help="validate the config and print the plan, simulate nothing",
+    )
+    p.add_argument(
+        "--check-only", dest="plan_only", action=DeprecatedAlias, nargs=0, new="--plan-only"
     )
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``gcmc build``: build (or resume) a kernel and print its summary; the exit code."""
     from gcmc.errors import InputError
     from gcmc.pipeline.build import build_kernel, mpi_rank_and_size
 
@@ -51,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
             args.config,
             workers=args.workers,
             progress=not args.no_progress,
-            plan_only=args.check_only,
+            plan_only=args.plan_only,
             on_plan=_print_plan,
         )
     except InputError as exc:
@@ -74,7 +81,7 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _print_plan(result) -> None:  # noqa: ANN001
+def _print_plan(result) -> None:
     cfg, plan = result.config, result.plan
     print(
         f"{cfg.name} v{result.version}: {cfg.probe.name}, {len(cfg.temperatures_K)} "
@@ -85,7 +92,7 @@ def _print_plan(result) -> None:  # noqa: ANN001
     )
 
 
-def _print_incomplete(result) -> None:  # noqa: ANN001
+def _print_incomplete(result) -> None:
     from gcmc.pipeline.build import failure_line
 
     plan, missing = result.plan, result.missing
@@ -101,7 +108,7 @@ def _print_incomplete(result) -> None:  # noqa: ANN001
         print(f"  {failure_line(plan, t)}", file=sys.stderr)
 
 
-def _summary(result) -> None:  # noqa: ANN001
+def _summary(result) -> None:
     from gcmc.cli.kernel import _flag_tokens
 
     plan, data, fits, report = result.plan, result.data, result.fits, result.report
@@ -148,7 +155,7 @@ def _summary(result) -> None:  # noqa: ANN001
             )
         )
     rows.append(("forms used", ", ".join(f"{k} x{v}" for k, v in forms.most_common())))
-    rows.append(("CPU time in tasks", f"{float(np.sum(data.task_seconds)):.1f} s"))
+    rows.append(("task wall-clock, summed", f"{float(np.sum(data.task_seconds)):.1f} s"))
     rows.append(("wall time", f"{seconds:.1f} s"))
     width = max(len(r[0]) for r in rows)
     print("\n".join(f"  {k:<{width}}  {v}" for k, v in rows))

@@ -11,6 +11,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from gcmc.cli.common import DeprecatedAlias, HelpFormatter, read_number_file
 from gcmc.errors import InputError
 
 CHECK_HELP = """Check a kernel before it is used to invert isotherms. Per temperature and pore
@@ -23,8 +24,10 @@ power for an experiment's noise and pressures (the smallest distinguishable widt
 singular values of the noise-weighted kernel matrix, the width above which pores are no longer
 resolved) and a round trip: synthetic pore-size distributions -> isotherms with noise ->
 a reference regularised inversion -> recovered volumes and modes. Each criterion gets pass,
-warn or fail with its thresholds. Exit code 1 if any criterion fails, 0 otherwise, 2 on bad
-input.
+warn or fail with its thresholds, or info where it only reports numbers (no threshold applies,
+e.g. no desorption branch for the hysteresis check; info never changes the exit code). The
+experiment's noise is sigma = sqrt((R n)^2 + A^2) (relative and absolute parts combined in
+quadrature). Exit code 1 if any criterion fails, 0 otherwise, 2 on bad input.
 
 With several kernels: check them as a set for one joint inversion (consistency of solid model
 and conventions, smallest accessible width per probe, the resolving power of the stacked
@@ -41,11 +44,12 @@ probes)."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``check`` and ``diff`` subcommands."""
     c = sub.add_parser(
         "check",
         help="quality checks of a kernel",
         description=CHECK_HELP,
-        formatter_class=argparse.ArgumentDefaultsHelpFormatter,
+        formatter_class=HelpFormatter,
     )
     c.add_argument(
         "kernel",
@@ -54,11 +58,19 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="a kernel file (<name>.v<version>.h5); several: check them as a set",
     )
     c.add_argument(
-        "--target-rel-error",
+        "--target-rel-stderr",
         type=float,
         default=0.02,
         metavar="R",
-        help="target relative standard error of a point",
+        help="target relative standard error of a point (the run config's "
+        "[sampling] target_rel_stderr)",
+    )
+    c.add_argument(
+        "--target-rel-error",
+        dest="target_rel_stderr",
+        type=float,
+        action=DeprecatedAlias,
+        new="--target-rel-stderr",
     )
     n = c.add_argument_group("experiment (resolving power and round trip)")
     n.add_argument(
@@ -66,14 +78,14 @@ def register(sub: argparse._SubParsersAction) -> None:
         type=float,
         default=0.01,
         metavar="R",
-        help="relative noise of a measured amount",
+        help="relative noise R of a measured amount n (sigma = sqrt((R n)^2 + A^2))",
     )
     n.add_argument(
         "--noise-abs-mmol-cm3",
         type=float,
         default=0.01,
         metavar="A",
-        help="absolute noise of a measured amount, mmol per cm3 of pore volume",
+        help="absolute noise A of a measured amount, mmol per cm3 of pore volume",
     )
     src = n.add_mutually_exclusive_group()
     src.add_argument(
@@ -141,7 +153,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         "diff",
         help="compare two kernels of the same probe",
         description=DIFF_HELP,
-        formatter_class=argparse.ArgumentDefaultsHelpFormatter,
+        formatter_class=HelpFormatter,
     )
     d.add_argument("a", metavar="A", help="a kernel file")
     d.add_argument("b", metavar="B", help="another kernel file of the same probe")
@@ -166,36 +178,13 @@ def _positive(name: str, value: float | None, allow_zero: bool = False) -> None:
 
 def read_pressure_file(path: str) -> list[float]:
     """Pressures (Pa) from a text file: numbers separated by white space or commas, '#'
-    comments. InputError naming the file for anything else."""
-    p = Path(path)
-    try:
-        text = p.read_text()
-    except OSError as exc:
-        raise InputError(f"--pressures-Pa {path}: cannot read ({exc.strerror or exc})") from None
-    values = []
-    for lineno, line in enumerate(text.splitlines(), 1):
-        line = line.split("#", 1)[0]
-        for tok in line.replace(",", " ").split():
-            try:
-                v = float(tok)
-            except ValueError:
-                raise InputError(
-                    f"--pressures-Pa {path}: line {lineno}: {tok!r} is not a number"
-                ) from None
-            if not math.isfinite(v) or v <= 0:
-                raise InputError(
-                    f"--pressures-Pa {path}: line {lineno}: pressure {tok} must "
-                    "be finite and > 0 Pa"
-                )
-            values.append(v)
-    if len(values) < 2:
-        raise InputError(f"--pressures-Pa {path}: need at least 2 pressures, found {len(values)}")
-    return values
+    comments, at least two. InputError naming the file for anything else."""
+    return [float(x) for x in read_number_file(path, "--pressures-Pa", " Pa", minimum=2)]
 
 
 def validate_common(args: argparse.Namespace) -> None:
     """The checks of the options shared by the single and the set check."""
-    _positive("target-rel-error", args.target_rel_error)
+    _positive("target-rel-stderr", args.target_rel_stderr)
     _positive("noise-rel", args.noise_rel, allow_zero=True)
     _positive("noise-abs-mmol-cm3", args.noise_abs_mmol_cm3, allow_zero=True)
     _positive("chi2-threshold", args.chi2_threshold)
@@ -228,6 +217,8 @@ def experiment_pressures(args: argparse.Namespace) -> Any:
 
 
 def run_check(args: argparse.Namespace) -> int:
+    """Run ``gcmc check``: judge a kernel (or a set), print the verdicts, write the report;
+    the exit code."""
     from gcmc.cli.check_set import run_check_set, wants_set
     from gcmc.kernel.reader import open_kernel
     from gcmc.quality.criteria import CheckSettings, format_table, run_checks
@@ -246,7 +237,7 @@ def run_check(args: argparse.Namespace) -> int:
     if temps is not None:
         kernel.temperature_index(temps[0])  # InputError naming the kernel's temperatures
     settings = CheckSettings(
-        target_rel_error=args.target_rel_error,
+        target_rel_stderr=args.target_rel_stderr,
         noise=NoiseModel(args.noise_rel, args.noise_abs_mmol_cm3),
         pressures_Pa=pressures,
         temperatures_K=temps,
@@ -277,6 +268,7 @@ def run_check(args: argparse.Namespace) -> int:
 
 
 def run_diff(args: argparse.Namespace) -> int:
+    """Run ``gcmc diff``: compare two kernels and print the differences; the exit code."""
     from gcmc.kernel.reader import open_kernel
     from gcmc.quality.diff import diff_kernels, format_diff
 

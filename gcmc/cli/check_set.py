@@ -250,7 +250,7 @@ def run_check_set(args: argparse.Namespace) -> int:
     if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
         raise InputError(f"--report {args.report}: exists and is not a folder")
     settings = SetSettings(
-        target_rel_error=args.target_rel_error,
+        target_rel_stderr=args.target_rel_stderr,
         chi2_threshold=args.chi2_threshold,
         resolution_fraction=args.resolution_fraction,
         realisations=args.realisations,

@@ -7,22 +7,34 @@ import argparse
 import csv
 import io
 import json
-import os
-import tempfile
 from collections import Counter
+from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from gcmc.cli.common import HelpFormatter, read_number_file
 from gcmc.errors import InputError
+from gcmc.files import atomic_write
+from gcmc.kernel.flags import count_kinds
+
+if TYPE_CHECKING:
+    from gcmc.kernel.reader import Kernel
 
 SHOW_HELP = """Verify a kernel file (schema version and checksums) and print a summary: model,
 equation of state, axes, simulated points and their flags, fitted forms and provenance."""
 
-EXPORT_HELP = """Verify a kernel file and export it. csv: one row per simulated point (branch,
-temperature, widths H and w, pressure, p/p0, density, its standard error, excess density,
-isosteric heat, flags). npz: the kernel's arrays (see kernels/README.md). The output file is
-written atomically."""
+EXPORT_HELP = """Verify a kernel file and export it.
+  csv: one row per simulated point (branch, temperature, widths H and w, pressure, p/p0,
+       density, its standard error, excess density, isosteric heat, flags).
+  npz: every dataset of the kernel file under its HDF5 path (e.g. axes/width_w_nm,
+       points/adsorption/density_per_nm3; layout: kernels/README.md) and attributes_json.
+  --matrix: the kernel matrix (density per nm^3 of pore volume) evaluated as the reader
+       evaluates it, on your pressures (Pa or p/p0) and widths (w or H; default: the
+       kernel's own): csv, a wide table with one row per pressure and one column per width,
+       units in the header; npz, the axes and the (pressures x widths) matrix.
+Numbers in CSV have 12 significant digits. The output file is written atomically."""
 
 #: CSV columns, in order (units in the names)
 CSV_COLUMNS = (
@@ -42,14 +54,67 @@ CSV_COLUMNS = (
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``show`` and ``export`` subcommands."""
     s = sub.add_parser("show", help="summarise a kernel file", description=SHOW_HELP)
     s.add_argument("kernel", metavar="KERNEL", help="a kernel file (<name>.v<version>.h5)")
     s.set_defaults(func=run_show)
-    e = sub.add_parser("export", help="export a kernel as CSV or NPZ", description=EXPORT_HELP)
+    e = sub.add_parser(
+        "export",
+        help="export a kernel's points, arrays or matrix as CSV or NPZ",
+        description=EXPORT_HELP,
+        formatter_class=HelpFormatter,
+    )
     e.add_argument("kernel", metavar="KERNEL", help="a kernel file (<name>.v<version>.h5)")
     e.add_argument("--format", choices=("csv", "npz"), required=True, help="output format")
     e.add_argument("--output", required=True, metavar="PATH", help="output file")
     e.add_argument("--force", action="store_true", help="replace an existing output file")
+    m = e.add_argument_group(
+        "the kernel matrix (--matrix): one row per pressure, one column per width"
+    )
+    m.add_argument(
+        "--matrix",
+        action="store_true",
+        help="export the kernel matrix evaluated on your pressures and widths",
+    )
+    m.add_argument(
+        "--temperature",
+        type=float,
+        metavar="K",
+        help="a kernel temperature (default: the kernel's only one)",
+    )
+    src = m.add_mutually_exclusive_group()
+    src.add_argument("--pressures-Pa", metavar="FILE", help="pressures in Pa, a text file")
+    src.add_argument(
+        "--p-range",
+        type=float,
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        help="log-spaced pressures from LOW to HIGH Pa (--p-points of them)",
+    )
+    src.add_argument("--p-p0", metavar="FILE", help="relative pressures p/p0, a text file")
+    src.add_argument(
+        "--p-p0-range",
+        type=float,
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        help="log-spaced p/p0 from LOW to HIGH (--p-points of them)",
+    )
+    m.add_argument(
+        "--p-points",
+        type=int,
+        default=30,
+        help="number of pressures for --p-range or --p-p0-range",
+    )
+    wsrc = m.add_mutually_exclusive_group()
+    wsrc.add_argument(
+        "--widths-w",
+        metavar="FILE",
+        help="internal widths w = H - sigma_ss in nm, a text file (default: the kernel's)",
+    )
+    wsrc.add_argument("--widths-H", metavar="FILE", help="widths H in nm, a text file")
+    m.add_argument(
+        "--excess", action="store_true", help="excess density instead of absolute density"
+    )
     e.set_defaults(func=run_export)
 
 
@@ -71,21 +136,11 @@ def _dict_line(d: dict) -> str:
 
 
 def _flag_tokens(flags: np.ndarray) -> Counter:
-    """Count flag kinds: a point's flags are joined by "; "; a flag's kind is the text before
-    its first ":" without an index suffix such as "[0]" (e.g. "error_unreliable[0]: no
-    plateau ..." counts as "error_unreliable")."""
-    counts: Counter = Counter()
-    for item in np.asarray(flags).ravel():
-        for flag in str(item).split(";"):
-            kind = flag.split(":", 1)[0].strip()
-            if "[" in kind:
-                kind = kind[: kind.index("[")]
-            if kind:
-                counts[kind] += 1
-    return counts
+    """Count flag kinds over an array of points' flags (gcmc.kernel.flags.count_kinds)."""
+    return count_kinds(np.asarray(flags).ravel())
 
 
-def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
+def summary(kernel: Kernel) -> str:
     """The text printed by `gcmc show`."""
     d = kernel.data
     info = kernel.info
@@ -128,7 +183,7 @@ def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
         flagged = int(np.count_nonzero((flags != "") & np.isfinite(n)))
         tokens = _flag_tokens(flags[np.isfinite(n)])
         detail = ", ".join(f"{k} {v}" for k, v in tokens.most_common()) or "none"
-        conv = fields.get("converted")
+        conv = fields.get("converged")
         not_conv = (
             int(np.count_nonzero(~np.asarray(conv, bool) & np.isfinite(n)))
             if conv is not None
@@ -137,7 +192,7 @@ def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
         add(
             "points" if branch == next(iter(d.points)) else "",
             f"{branch}: {simulated} simulated, {flagged} flagged ({detail}), "
-            f"{not_conv} not converged",
+            f"{not_conv} unconverged",
         )
     acc = np.asarray(d.accessible, dtype=bool)
     smallest = []
@@ -186,13 +241,14 @@ def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
     if isinstance(libs, dict) and libs:
         add("", "libraries " + ", ".join(f"{k} {v}" for k, v in libs.items()))
     secs = np.asarray(d.task_seconds, dtype=float)
-    add("", f"tasks {secs.size}, cost {np.nansum(secs):.4g} s in all")
+    add("", f"tasks {secs.size}, wall-clock {np.nansum(secs):.4g} s summed over tasks")
     if d.extra:
         add("extra", ", ".join(sorted(d.extra)))
     return "\n".join(lines)
 
 
 def run_show(args: argparse.Namespace) -> int:
+    """Run ``gcmc show``: print a kernel's summary; the exit code."""
     from gcmc.kernel.reader import open_kernel
 
     print(summary(open_kernel(args.kernel)))
@@ -202,13 +258,23 @@ def run_show(args: argparse.Namespace) -> int:
 # --------------------------------------------------------------------------------------------
 # export
 # --------------------------------------------------------------------------------------------
+#: significant digits of a number in a text export: 12 keeps every digit a person reads and
+#: drops the binary noise of the last bits (0.35999999999999993 -> 0.36)
+DIGITS = 12
+
+
 def _num(x: float) -> str:
-    return repr(float(x))
+    """A number as a person reads it: 12 significant digits, "nan"/"inf" where not finite."""
+    x = float(x)
+    if not np.isfinite(x):
+        return "nan" if np.isnan(x) else ("inf" if x > 0 else "-inf")
+    return f"{x:.{DIGITS}g}"
 
 
-def csv_text(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
+def csv_text(kernel: Kernel) -> str:
     """The long-format CSV of `gcmc export --format csv`: one row per grid point of the
-    adsorption branch (finite pressure) and per simulated point of the other branches."""
+    adsorption branch (finite pressure) and per simulated point of the other branches;
+    numbers with 12 significant digits."""
     from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 
     d = kernel.data
@@ -250,79 +316,54 @@ def csv_text(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
     return buf.getvalue()
 
 
-def npz_arrays(kernel) -> dict[str, np.ndarray]:  # noqa: ANN001 - a gcmc.reader.Kernel
-    """The arrays of `gcmc export --format npz` (names documented in kernels/README.md)."""
-    d = kernel.data
+#: HDF5 bookkeeping attributes of dimension scales: file addresses and scale markers, not data
+_SKIP_ATTRS = frozenset({"DIMENSION_LIST", "REFERENCE_LIST", "CLASS", "NAME"})
+
+
+def _plain(value: object) -> object:
+    if isinstance(value, bytes):
+        return value.decode("utf-8", "replace")
+    if isinstance(value, np.ndarray):
+        return [_plain(v) for v in value.tolist()] if value.dtype.kind in "OS" else value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def npz_arrays(kernel: Kernel) -> dict[str, np.ndarray]:
+    """The arrays of `gcmc export --format npz`: every dataset of the kernel file under its
+    HDF5 path (e.g. ``axes/width_w_nm``, ``limits/henry_constant_per_nm3_per_Pa``,
+    ``points/adsorption/density_per_nm3``; layout: kernels/README.md), strings as unicode
+    arrays, plus ``attributes_json``: every attribute, keyed by the path of its group or
+    dataset (``/`` for the file's root)."""
+    import h5py
+
+    if kernel.path is None:
+        raise InputError("export: the kernel has no file to export")
     out: dict[str, np.ndarray] = {}
-    for name in (
-        "temperatures_K",
-        "widths_H_nm",
-        "widths_w_nm",
-        "pressures_Pa",
-        "relative_pressures",
-        "saturation_pressures_Pa",
-        "fugacities_Pa",
-        "bulk_density_per_nm3",
-        "henry_per_nm3_per_pa",
-        "accessible",
-        "dense_pressures_Pa",
-        "dense_density_per_nm3",
-        "task_seeds",
-        "task_seconds",
-    ):
-        out[name] = np.asarray(getattr(d, name))
-    for branch, fields in d.points.items():
-        for fname, arr in fields.items():
-            out[f"points.{branch}.{fname}"] = np.asarray(arr)
-        out[f"flags.{branch}"] = np.asarray(d.flags[branch], dtype=str)
-    n_t, n_w = len(d.temperatures_K), len(d.widths_H_nm)
-    k = max([np.asarray(r.parameters).size for row in d.fits for r in row] + [0])
-    form = np.empty((n_t, n_w), dtype=object)
-    n_par = np.zeros((n_t, n_w), dtype=np.int64)
-    par = np.full((n_t, n_w, k), np.nan)
-    cov = np.full((n_t, n_w, k, k), np.nan)
-    scalars = {s: np.full((n_t, n_w), np.nan) for s in ("chi2", "reduced_chi2", "p_value", "aicc")}
-    dof = np.zeros((n_t, n_w), dtype=np.int64)
-    accepted = np.zeros((n_t, n_w), dtype=bool)
-    for t, row in enumerate(d.fits):
-        for w, r in enumerate(row):
-            m = np.asarray(r.parameters).size
-            form[t, w], n_par[t, w] = r.form, m
-            par[t, w, :m] = r.parameters
-            cov[t, w, :m, :m] = r.covariance
-            for s in scalars:
-                scalars[s][t, w] = getattr(r, s)
-            dof[t, w], accepted[t, w] = r.dof, r.accepted
-    out["fits.form"] = form.astype(str)
-    out["fits.n_parameters"] = n_par
-    out["fits.parameters"] = par
-    out["fits.covariance"] = cov
-    for s, a in scalars.items():
-        out[f"fits.{s}"] = a
-    out["fits.dof"] = dof
-    out["fits.accepted"] = accepted
-    for key, value in d.extra.items():
-        out[f"extra.{key}"] = np.asarray(value)
-    meta = {
-        "name": d.name,
-        "version": d.version,
-        "schema_version": kernel.schema_version,
-        "probe": d.probe,
-        "solid": d.solid,
-        "cutoff_nm": d.cutoff_nm,
-        "box_nm": d.box_nm,
-        "tail_correction": d.tail_correction,
-        "eos": d.eos,
-        "eos_parameters": d.eos_parameters,
-        "width_convention": d.width_convention,
-        "pore_volume_convention": d.pore_volume_convention,
-        "sampler": d.sampler,
-        "above_range": d.above_range,
-        "provenance": d.provenance,
-        "checksum_sha256": kernel.info.get("checksum_sha256", ""),
-    }
-    out["metadata_json"] = np.array(json.dumps(meta, default=_json_default))
-    out["config_text"] = np.array(d.config_text)
+    attrs: dict[str, dict[str, object]] = {}
+
+    def keep_attrs(path: str, obj: h5py.HLObject) -> None:
+        a = {k: _plain(v) for k, v in obj.attrs.items() if k not in _SKIP_ATTRS}
+        if a:
+            attrs[path] = a
+
+    def visit(name: str, obj: h5py.HLObject) -> None:
+        keep_attrs("/" + name, obj)
+        if not isinstance(obj, h5py.Dataset):
+            return
+        if h5py.check_string_dtype(obj.dtype) is not None:
+            out[name] = np.asarray(obj.asstr()[()], dtype=str)
+        else:
+            out[name] = np.asarray(obj[()])
+
+    try:
+        with h5py.File(kernel.path, "r") as f:
+            keep_attrs("/", f)
+            f.visititems(visit)
+    except OSError as exc:
+        raise InputError(f"{kernel.path}: cannot read ({exc})") from None
+    out["attributes_json"] = np.array(json.dumps(attrs, default=_json_default, sort_keys=True))
     return out
 
 
@@ -334,6 +375,140 @@ def _json_default(o: object) -> object:
     return str(o)
 
 
+# --------------------------------------------------------------------------------------------
+# the kernel matrix on the user's pressures and widths
+# --------------------------------------------------------------------------------------------
+@dataclass
+class MatrixTable:
+    """The kernel matrix on given pressures and widths, as `gcmc export --matrix` writes it.
+
+    Attributes
+    ----------
+    temperature_K : float
+        The kernel temperature.
+    pressure_Pa : ndarray, shape (P,)
+        Pressures (rows).
+    relative_pressure : ndarray, shape (P,)
+        p/p0 of the kernel's EOS (NaN where it has no saturation pressure).
+    width_axis : str
+        "w" or "H": the axis the widths were given on.
+    width_H_nm, width_w_nm : ndarray, shape (W,)
+        Widths (columns) on both axes.
+    quantity : str
+        "density_per_nm3" (absolute) or "excess_density_per_nm3".
+    matrix : ndarray, shape (P, W)
+        The kernel matrix, molecules per nm^3 of pore volume.
+    """
+
+    temperature_K: float
+    pressure_Pa: np.ndarray
+    relative_pressure: np.ndarray
+    width_axis: str
+    width_H_nm: np.ndarray
+    width_w_nm: np.ndarray
+    quantity: str
+    matrix: np.ndarray
+
+
+def matrix_table(
+    kernel: Kernel,
+    temperature_K: float | None = None,
+    pressures_Pa: np.ndarray | None = None,
+    relative_pressures: np.ndarray | None = None,
+    widths_nm: np.ndarray | None = None,
+    width_axis: str = "w",
+    excess: bool = False,
+) -> MatrixTable:
+    """Evaluate the kernel matrix (:meth:`gcmc.reader.Kernel.evaluate`) on the given pressures
+    (Pa, or p/p0 through the kernel's saturation pressure; default: the kernel's own) and
+    widths (default: the kernel's own) at one kernel temperature (default: the only one)."""
+    d = kernel.data
+    temps = np.asarray(d.temperatures_K, dtype=float)
+    if temperature_K is None:
+        if temps.size != 1:
+            known = ", ".join(f"{x:g}" for x in temps)
+            raise InputError(f"--temperature: the kernel has several temperatures ({known} K)")
+        temperature_K = float(temps[0])
+    t = kernel.temperature_index(float(temperature_K))
+    psat = float(np.asarray(d.saturation_pressures_Pa, dtype=float)[t])
+    if relative_pressures is not None:
+        if not np.isfinite(psat):
+            raise InputError(
+                f"--p-p0: the kernel has no saturation pressure at {temps[t]:g} K "
+                "(above the critical temperature, or an ideal-gas EOS); give pressures in Pa"
+            )
+        p = np.asarray(relative_pressures, dtype=float) * psat
+    elif pressures_Pa is not None:
+        p = np.asarray(pressures_Pa, dtype=float)
+    else:
+        p = kernel.pressures_Pa(t)
+    sigma_offset = np.asarray(d.widths_H_nm, float) - np.asarray(d.widths_w_nm, float)
+    offset = float(sigma_offset[0]) if sigma_offset.size else 0.0
+    if widths_nm is None:
+        x = np.asarray(d.widths_w_nm if width_axis == "w" else d.widths_H_nm, dtype=float)
+    else:
+        x = np.asarray(widths_nm, dtype=float)
+    m = kernel.evaluate(
+        p, x, float(temps[t]), width_axis=width_axis, quantity="excess" if excess else "absolute"
+    )
+    with np.errstate(invalid="ignore"):
+        rel = p / psat if np.isfinite(psat) else np.full(p.shape, np.nan)
+    h = x if width_axis == "H" else x + offset
+    w = x if width_axis == "w" else x - offset
+    return MatrixTable(
+        temperature_K=float(temps[t]),
+        pressure_Pa=p,
+        relative_pressure=rel,
+        width_axis=width_axis,
+        width_H_nm=h,
+        width_w_nm=w,
+        quantity="excess_density_per_nm3" if excess else "density_per_nm3",
+        matrix=m,
+    )
+
+
+def matrix_csv_text(table: MatrixTable) -> str:
+    """The wide CSV of `gcmc export --matrix`: one row per pressure, one column per width;
+    the header names the quantity, its unit and each width with its axis."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    axis = table.width_axis
+    widths = table.width_w_nm if axis == "w" else table.width_H_nm
+    writer.writerow(
+        ["pressure_Pa", "relative_pressure"]
+        + [f"{table.quantity} at {axis} = {_num(x)} nm" for x in widths]
+    )
+    for i, p in enumerate(table.pressure_Pa):
+        writer.writerow(
+            [_num(p), _num(table.relative_pressure[i])] + [_num(v) for v in table.matrix[i]]
+        )
+    return buf.getvalue()
+
+
+def matrix_arrays(table: MatrixTable) -> dict[str, np.ndarray]:
+    """The NPZ of `gcmc export --matrix`: the axes, the matrix under its quantity's name
+    (shape pressures x widths) and ``units_json``."""
+    units = {
+        "temperature_K": "K",
+        "pressure_Pa": "Pa",
+        "relative_pressure": "1",
+        "width_H_nm": "nm",
+        "width_w_nm": "nm",
+        table.quantity: "nm^-3 (molecules per nm^3 of pore volume), rows: pressures, "
+        "columns: widths",
+    }
+    return {
+        "temperature_K": np.array(table.temperature_K),
+        "pressure_Pa": table.pressure_Pa,
+        "relative_pressure": table.relative_pressure,
+        "width_H_nm": table.width_H_nm,
+        "width_w_nm": table.width_w_nm,
+        "width_axis": np.array(table.width_axis),
+        table.quantity: table.matrix,
+        "units_json": np.array(json.dumps(units)),
+    }
+
+
 def _write_atomic(path: Path, write, force: bool) -> None:  # noqa: ANN001
     if path.exists() and not force:
         raise InputError(f"--output: {path} exists (use --force to replace it)")
@@ -342,25 +517,87 @@ def _write_atomic(path: Path, write, force: bool) -> None:  # noqa: ANN001
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise InputError(f"--output: folder {folder} does not exist")
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    tmp = Path(tmp_name)
     try:
-        with os.fdopen(fd, "wb") as fh:
+        with atomic_write(path, "wb") as fh:
             write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
     except OSError as exc:
         raise InputError(f"--output: cannot write {path} ({exc})") from None
-    finally:
-        tmp.unlink(missing_ok=True)
+
+
+_MATRIX_OPTIONS = (
+    ("temperature", "--temperature"),
+    ("pressures_Pa", "--pressures-Pa"),
+    ("p_range", "--p-range"),
+    ("p_p0", "--p-p0"),
+    ("p_p0_range", "--p-p0-range"),
+    ("widths_w", "--widths-w"),
+    ("widths_H", "--widths-H"),
+    ("excess", "--excess"),
+)
+
+
+def _matrix_from_args(kernel: Kernel, args: argparse.Namespace) -> MatrixTable:
+    import math
+
+    if args.p_points < 2:
+        raise InputError(f"--p-points: need at least 2, got {args.p_points}")
+    pressures = relative = None
+    for opt, rng in (("--p-range", args.p_range), ("--p-p0-range", args.p_p0_range)):
+        if rng is None:
+            continue
+        lo, hi = rng
+        if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
+            raise InputError(f"{opt}: need 0 < LOW < HIGH, got {lo:g} {hi:g}")
+        if opt == "--p-p0-range" and hi > 1.0:
+            raise InputError(f"--p-p0-range: p/p0 above 1 ({hi:g}) is beyond saturation")
+        values = np.geomspace(lo, hi, args.p_points)
+        if opt == "--p-range":
+            pressures = values
+        else:
+            relative = values
+    if args.pressures_Pa is not None:
+        pressures = read_number_file(args.pressures_Pa, "--pressures-Pa", " Pa")
+    if args.p_p0 is not None:
+        relative = read_number_file(args.p_p0, "--p-p0", "")
+    widths, axis = None, "w"
+    if args.widths_w is not None:
+        widths = read_number_file(args.widths_w, "--widths-w", " nm")
+    elif args.widths_H is not None:
+        widths, axis = read_number_file(args.widths_H, "--widths-H", " nm"), "H"
+    return matrix_table(
+        kernel,
+        temperature_K=args.temperature,
+        pressures_Pa=pressures,
+        relative_pressures=relative,
+        widths_nm=widths,
+        width_axis=axis,
+        excess=args.excess,
+    )
 
 
 def run_export(args: argparse.Namespace) -> int:
+    """Run ``gcmc export``: write a kernel as CSV or NPZ (atomically); the exit code."""
     from gcmc.kernel.reader import open_kernel
 
+    if not args.matrix:
+        given = [opt for dest, opt in _MATRIX_OPTIONS if getattr(args, dest) not in (None, False)]
+        if given:
+            raise InputError(f"{given[0]}: applies to --matrix only")
     kernel = open_kernel(args.kernel)
     out = Path(args.output)
+    if args.matrix:
+        table = _matrix_from_args(kernel, args)
+        if args.format == "csv":
+            text = matrix_csv_text(table).encode("utf-8")
+            _write_atomic(out, lambda fh: fh.write(text), args.force)
+        else:
+            arrays = matrix_arrays(table)
+            _write_atomic(out, lambda fh: np.savez(fh, **arrays), args.force)
+        print(
+            f"wrote {out} ({args.format}: kernel matrix, {table.matrix.shape[0]} pressures x "
+            f"{table.matrix.shape[1]} widths at {table.temperature_K:g} K)"
+        )
+        return 0
     if args.format == "csv":
         text = csv_text(kernel).encode("utf-8")
         _write_atomic(out, lambda fh: fh.write(text), args.force)

@@ -10,6 +10,7 @@ import hashlib
 import json
 import math
 import tomllib
+import warnings
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
@@ -51,6 +52,8 @@ KNOWN_SECTIONS = {
 
 @dataclass(frozen=True)
 class PressureGrid:
+    """The pressure grid of a build: absolute (Pa) or relative (p/p0) values."""
+
     kind: str  # "absolute" (values in Pa) or "relative" (values are p/p0)
     values: tuple[float, ...]
     descending: bool  # also run the desorption branch
@@ -58,6 +61,9 @@ class PressureGrid:
 
 @dataclass(frozen=True)
 class FitOptions:
+    """How isotherms are fitted: the forms tried, the acceptance threshold, the policy above
+    the simulated range and the size of the dense table."""
+
     forms: tuple[str, ...] = FIT_DEFAULT_FORMS
     p_value_min: float = 1e-3
     above_range: str = "clamp"
@@ -66,6 +72,8 @@ class FitOptions:
 
 @dataclass(frozen=True)
 class RunConfig:
+    """A validated build configuration (from a TOML file; see :func:`parse_config`)."""
+
     path: Path
     text: str
     name: str
@@ -102,7 +110,12 @@ class RunConfig:
             "temperatures_K": self.temperatures_K,
             "pressures": [self.pressures.kind, self.pressures.values, self.pressures.descending],
             "eos": self.eos,
-            "sampling": self.sampling.__dict__,
+            # the key of replica_exchange stays "exchange" (its name before the rename), so
+            # that configs built before keep their hash and their kernels stay up to date
+            "sampling": {
+                ("exchange" if k == "replica_exchange" else k): v
+                for k, v in self.sampling.__dict__.items()
+            },
             "fit": self.fit.__dict__,
             "seed": self.seed,
             "name": self.name,
@@ -261,6 +274,23 @@ def _widths(where: str, table: Any, sigma_ss: float) -> list[float]:
     return out
 
 
+def _replica_exchange(sf: _Fields, default: bool) -> bool:
+    """``[sampling] replica_exchange``; the old key ``exchange`` is still read, with a
+    warning (it named replica swaps, easily confused with reservoir exchanges)."""
+    if "exchange" in sf.table:
+        if "replica_exchange" in sf.table:
+            raise InputError(
+                f"{sf.where}.exchange: give replica_exchange only (exchange is its old name)"
+            )
+        warnings.warn(
+            f"{sf.where}.exchange: deprecated key; write replica_exchange",
+            FutureWarning,
+            stacklevel=3,
+        )
+        return sf.boolean("exchange", default)
+    return sf.boolean("replica_exchange", default)
+
+
 def load_config(path: str | Path) -> RunConfig:
     """Read and validate a run config; raise InputError naming the first bad field."""
     path = Path(path)
@@ -278,6 +308,7 @@ def load_config(path: str | Path) -> RunConfig:
 
 
 def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
+    """Validate a parsed TOML config into a RunConfig; InputError naming the first bad field."""
     p = path.name
     for key in data:
         if key not in KNOWN_SECTIONS:
@@ -402,7 +433,7 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         replicas=sf.integer("replicas", d.replicas, 1),
         target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
         max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),
-        exchange=sf.boolean("exchange", d.exchange),
+        replica_exchange=_replica_exchange(sf, d.replica_exchange),
     )
     sf.done()
     try:

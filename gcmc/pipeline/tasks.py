@@ -21,8 +21,10 @@ from pathlib import Path
 import numpy as np
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_write, atomic_write_text
 from gcmc.kernel.data import POINT_FIELDS
 from gcmc.physics.model import SLIT, PoreModel
+from gcmc.pipeline import faults
 from gcmc.pipeline.config import RunConfig
 
 BRANCHES = ("adsorption", "desorption")
@@ -30,6 +32,8 @@ BRANCHES = ("adsorption", "desorption")
 
 @dataclass(frozen=True)
 class TemperaturePlan:
+    """The bulk states of one temperature's pressure grid, from the equation of state."""
+
     temperature_K: float
     saturation_pressure_Pa: float
     pressures_Pa: np.ndarray
@@ -41,17 +45,22 @@ class TemperaturePlan:
 
 @dataclass(frozen=True)
 class Task:
+    """One task: a pressure ladder at one temperature and one width."""
+
     t_index: int
     w_index: int
     estimated_cost: float
 
     @property
     def key(self) -> str:
+        """The task's name in file names and logs, ``t<T>_w<W>``."""
         return f"t{self.t_index:03d}_w{self.w_index:03d}"
 
 
 @dataclass(frozen=True)
 class BuildPlan:
+    """A planned build: the config, the bulk states per temperature and the tasks."""
+
     config: RunConfig
     temperatures: list[TemperaturePlan]
     tasks: list[Task]  # most expensive first
@@ -60,6 +69,7 @@ class BuildPlan:
 
     @property
     def n_points(self) -> int:
+        """Points the build simulates (both branches counted)."""
         per = len(self.config.pressures.values) * (2 if self.config.pressures.descending else 1)
         return per * len(self.tasks)
 
@@ -126,10 +136,12 @@ def make_plan(cfg: RunConfig) -> BuildPlan:
 
 
 def task_seed(cfg: RunConfig, task: Task) -> np.random.SeedSequence:
+    """The random seed of a task: ``SeedSequence(seed, spawn_key=(t, w))``."""
     return np.random.SeedSequence(entropy=cfg.seed, spawn_key=(task.t_index, task.w_index))
 
 
 def pore_model(cfg: RunConfig, w_index: int) -> PoreModel:
+    """The pore model of one kernel width."""
     return PoreModel(
         probe=cfg.probe,
         solid=cfg.solid,
@@ -143,10 +155,12 @@ def pore_model(cfg: RunConfig, w_index: int) -> PoreModel:
 
 
 def task_path(plan: BuildPlan, task: Task) -> Path:
+    """The task's result file (.npz)."""
     return plan.task_dir / f"{task.key}.npz"
 
 
 def failure_path(plan: BuildPlan, task: Task) -> Path:
+    """The task's failure record (.json)."""
     return plan.task_dir / f"{task.key}.failed.json"
 
 
@@ -158,11 +172,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     from gcmc.physics.henry import pore_limit
     from gcmc.sampling.point import ThermoState, simulate_point
 
-    # Test hook (used by tests/test_build_resume.py): GCMC_FAIL_TASK=t000_w002[,...] makes
-    # these tasks fail, to exercise failure reporting and retry on rerun. Unset in real builds.
-    fail_keys = os.environ.get("GCMC_FAIL_TASK", "")
-    if task.key in fail_keys.split(","):
-        raise RuntimeError(f"failed on purpose (test hook GCMC_FAIL_TASK={fail_keys})")
+    faults.check_task(task.key)  # the test seam (gcmc.pipeline.faults); nothing in real builds
     cfg = plan.config
     tp = plan.temperatures[task.t_index]
     model = pore_model(cfg, task.w_index)
@@ -192,7 +202,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             )
             for k in range(n_p)
         ]
-        if cfg.sampling.exchange:  # replica exchange along the ladder (gcmc.sampling.ladder)
+        if cfg.sampling.replica_exchange:  # configuration swaps along the ladder (sampling.ladder)
             from gcmc.sampling.ladder import simulate_ladder
 
             ladder = simulate_ladder(
@@ -205,7 +215,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             )
         for k in order:
             state = states[k]
-            if cfg.sampling.exchange:
+            if cfg.sampling.replica_exchange:
                 out = ladder.points[k]
             else:
                 out = simulate_point(
@@ -254,19 +264,12 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
 
 def _atomic_savez(path: Path, arrays: dict[str, np.ndarray]) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    with atomic_write(path, "wb") as fh:
+        np.savez(fh, **arrays)
 
 
 def load_task(path: Path) -> tuple[dict[str, np.ndarray], dict]:
+    """A task file's arrays and its metadata dict."""
     with np.load(path) as z:
         arrays = {k: z[k] for k in z.files}
     meta = json.loads(arrays.pop("meta_json").tobytes().decode())
@@ -279,7 +282,7 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
     try:
         run_task(plan, task)
         return "done", time.perf_counter() - t0, ""
-    except Exception as exc:  # noqa: BLE001 - a failed task must not take the others down
+    except Exception as exc:  # a failed task must not take the others down
         tp = plan.temperatures[task.t_index]
         msg = (
             f"task {task.key} (T = {tp.temperature_K:g} K, H = "
@@ -289,9 +292,7 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
         record = {"task": task.key, "error": msg, "traceback": traceback.format_exc()}
         fail = failure_path(plan, task)
         fail.parent.mkdir(parents=True, exist_ok=True)
-        tmp = fail.with_name(f".{fail.name}.{os.getpid()}.tmp")
-        tmp.write_text(json.dumps(record, indent=1))
-        os.replace(tmp, fail)
+        atomic_write_text(fail, json.dumps(record, indent=1))
         return "failed", time.perf_counter() - t0, msg
 
 
@@ -321,6 +322,7 @@ def _worker_run(plan: BuildPlan, t_index: int, w_index: int) -> tuple[str, str, 
 
 
 def pending_tasks(plan: BuildPlan) -> list[Task]:
+    """The plan's tasks without a result file, in the plan's order."""
     return [t for t in plan.tasks if not task_path(plan, t).exists()]
 
 
@@ -335,7 +337,7 @@ def learned_order(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
             try:
                 arrays, _ = load_task(p)
                 measured[(t.t_index, t.w_index)] = float(arrays["seconds"])
-            except Exception:  # noqa: BLE001 - a damaged file is simply re-run
+            except Exception:  # a damaged file is simply re-run
                 p.unlink(missing_ok=True)
     if not measured:
         return tasks

@@ -6,7 +6,7 @@ used to find out whether a kernel, at a given noise level and on given pressures
 back a known distribution. It is not a product feature and makes no claim to be the best
 inversion for measured data.
 
-Problem (REFERENCES.md section 8): the amount adsorbed at pressure p_i is
+Problem (a Fredholm integral equation of the first kind): the amount adsorbed at pressure p_i is
     b_i = sum_j K(p_i, w_j) f_j dw_j,
 with K the kernel (mmol per cm^3 of pore volume), f the PSD (cm^3/g per nm of width), dw_j the
 quadrature weights of the width grid (trapezoid rule), b in mmol/g. Written A f = b with

@@ -21,18 +21,25 @@ import numpy as np
 from matplotlib.ticker import MaxNLocator
 
 from gcmc.quality.joint import JointResolution, JointRoundTrip, SetReport
-from gcmc.quality.report import new_figure, report_folder, save_figure, write_json
+from gcmc.quality.report import (
+    PALETTE,
+    SERIES_COLOURS,
+    new_figure,
+    report_folder,
+    save_figure,
+    write_json,
+)
 
-_SET_COLOUR = "#0969da"
-_MEMBER_COLOURS = ("#cf222e", "#8250df", "#1a7f37", "#bc4c00", "#57606a", "#b08800")
-_VERDICT_COLOUR = {"pass": "#1a7f37", "info": "#57606a", "warn": "#b08800", "fail": "#cf222e"}
+_SET_COLOUR = PALETTE["line"]
+_MEMBER_COLOURS = SERIES_COLOURS
+_VERDICT_COLOUR = {k: PALETTE[k] for k in ("pass", "info", "warn", "fail")}
 
 
 def _colour(i: int) -> str:
     return _MEMBER_COLOURS[i % len(_MEMBER_COLOURS)]
 
 
-def plot_gain(ax_top, ax_bottom, jr: JointResolution) -> None:  # noqa: ANN001
+def plot_gain(ax_top, ax_bottom, jr: JointResolution) -> None:
     """The two panels of ``set-gain`` (module docstring)."""
     s = jr.set
     w = s.widths_w_nm
@@ -100,14 +107,16 @@ def plot_gain(ax_top, ax_bottom, jr: JointResolution) -> None:  # noqa: ANN001
     only = jr.only_set
     if only.size:
         idx = np.searchsorted(w, only)
-        ax_bottom.plot(only, g[idx], "*", ms=8, color="#cf222e", label="resolved only by the set")
+        ax_bottom.plot(
+            only, g[idx], "*", ms=8, color=PALETTE["fail"], label="resolved only by the set"
+        )
         ax_bottom.legend(fontsize=7, loc="upper right")
     ax_bottom.set_yscale("log")
     ax_bottom.set_xlabel("pore width w (nm)")
     ax_bottom.set_ylabel("gain: best member $\\delta w_2$ / set $\\delta w_2$")
 
 
-def plot_joint_round_trip(ax, rt: JointRoundTrip) -> None:  # noqa: ANN001
+def plot_joint_round_trip(ax, rt: JointRoundTrip) -> None:
     """One PSD: true, joint (median and band), each member alone (median)."""
     med, lo, hi = rt.joint.band()
     ax.fill_between(rt.widths_nm, lo, hi, color=_SET_COLOUR, alpha=0.2, lw=0)
@@ -126,14 +135,16 @@ def plot_joint_round_trip(ax, rt: JointRoundTrip) -> None:  # noqa: ANN001
     ax.plot(rt.widths_nm, rt.true_psd, "k--", lw=1.0, label="synthetic")
     state = rt.verdict if rt.resolvable else "not resolvable"
     ax.set_title(
-        f"{rt.psd.name}: set {state}", fontsize=8, color=_VERDICT_COLOUR.get(rt.verdict, "#57606a")
+        f"{rt.psd.name}: set {state}",
+        fontsize=8,
+        color=_VERDICT_COLOUR.get(rt.verdict, PALETTE["info"]),
     )
     ax.set_xlabel("pore width w (nm)")
     ax.set_ylabel("PSD (cm$^3$/g/nm)")
     ax.legend(fontsize=6, loc="upper right")
 
 
-def plot_set_singular_values(ax, jr: JointResolution) -> None:  # noqa: ANN001
+def plot_set_singular_values(ax, jr: JointResolution) -> None:
     """Singular values of the stacked matrix and of each member's."""
     for i, r in enumerate(jr.members):
         k = np.arange(1, r.singular_values.size + 1)
@@ -162,7 +173,7 @@ def plot_set_singular_values(ax, jr: JointResolution) -> None:  # noqa: ANN001
     ax.legend(fontsize=7)
 
 
-def gain_figure(report: SetReport):  # noqa: ANN201
+def gain_figure(report: SetReport):
     """The ``set-gain`` figure (a matplotlib Figure)."""
     fig = new_figure(7.2, 6.4)
     grid = fig.add_gridspec(2, 1, height_ratios=(3, 2))

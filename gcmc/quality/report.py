@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import json
 import os
-import tempfile
 import warnings
 from pathlib import Path
 
@@ -33,32 +32,39 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_path, atomic_write
 from gcmc.kernel.reader import Kernel
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.quality.criteria import CheckReport, RoundTrip
 from gcmc.quality.resolution import ResolvingPower
 
 FORMATS = ("png", "pdf")
-_VERDICT_COLOUR = {"pass": "#1a7f37", "info": "#57606a", "warn": "#b08800", "fail": "#cf222e"}
+#: The report's own palette, chosen for this project (muted earth tones for the verdicts, a
+#: slate blue and a plum for measured curves).
+PALETTE = {
+    "pass": "#3c7a4e",  # moss green
+    "info": "#6e6a64",  # warm grey
+    "warn": "#c08a1e",  # ochre
+    "fail": "#a3352b",  # brick red
+    "line": "#2f5d7c",  # slate blue: measured curves
+    "accent": "#7a4e8c",  # plum: a second measured curve
+}
+_VERDICT_COLOUR = {k: PALETTE[k] for k in ("pass", "info", "warn", "fail")}
+#: curves of several kernels side by side (a set check's members), in this order
+SERIES_COLOURS = (
+    PALETTE["fail"],
+    PALETTE["accent"],
+    PALETTE["pass"],
+    "#9a5b2e",  # rust
+    PALETTE["info"],
+    PALETTE["warn"],
+)
 
 
 def _figure(width: float, height: float) -> Figure:
     fig = Figure(figsize=(width, height))
     FigureCanvasAgg(fig)
     return fig
-
-
-def _default_mode() -> int:
-    """0o666 less the process umask: the mode an ordinary open() would give a new file
-    (mkstemp makes its files private)."""
-    mask = os.umask(0)
-    os.umask(mask)
-    return 0o666 & ~mask
-
-
-def _publish(tmp: str, final: Path) -> None:
-    os.chmod(tmp, _default_mode())
-    os.replace(tmp, final)
 
 
 def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
@@ -69,14 +75,8 @@ def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
     out = []
     for fmt in FORMATS:
         final = folder / f"{stem}.{fmt}"
-        fd, tmp = tempfile.mkstemp(prefix=f".{stem}.", suffix=f".{fmt}.tmp", dir=folder)
-        os.close(fd)
-        try:
+        with atomic_path(final) as tmp:
             fig.savefig(tmp, format=fmt, dpi=150)
-            _publish(tmp, final)
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
         out.append(final)
     return out
 
@@ -88,7 +88,8 @@ def _t_suffix(temperature_K: float) -> str:
 # --------------------------------------------------------------------------------------------
 # panels
 # --------------------------------------------------------------------------------------------
-def plot_isotherms(ax, kernel: Kernel, t: int) -> None:  # noqa: ANN001
+def plot_isotherms(ax, kernel: Kernel, t: int) -> None:
+    """Panel: the kernel's isotherms at one temperature."""
     d = kernel.data
     temp = float(d.temperatures_K[t])
     p = np.asarray(d.pressures_Pa[t], float)
@@ -125,7 +126,7 @@ def plot_isotherms(ax, kernel: Kernel, t: int) -> None:  # noqa: ANN001
         sm.set_label("pore width w (nm)")
 
 
-def _scalar_mappable(cmap, norm):  # noqa: ANN001, ANN202
+def _scalar_mappable(cmap, norm):
     from matplotlib.cm import ScalarMappable
 
     sm = ScalarMappable(norm=norm, cmap=cmap)
@@ -133,7 +134,8 @@ def _scalar_mappable(cmap, norm):  # noqa: ANN001, ANN202
     return sm
 
 
-def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:  # noqa: ANN001
+def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:
+    """Panel: relative standard errors of the points against the target."""
     d = kernel.data
     p = np.asarray(d.pressures_Pa[t], float)
     pts = d.points["adsorption"]
@@ -177,7 +179,8 @@ def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:  # 
     ax.set_title("relative standard errors of the points", fontsize=9)
 
 
-def plot_resolving_power(ax, res: ResolvingPower) -> None:  # noqa: ANN001
+def plot_resolving_power(ax, res: ResolvingPower) -> None:
+    """Panel: resolving power against width."""
     w = res.widths_w_nm
     rho = res.resolution_fraction
     ax.plot(
@@ -185,7 +188,7 @@ def plot_resolving_power(ax, res: ResolvingPower) -> None:  # noqa: ANN001
         res.pair_half_separation_nm,
         "o-",
         ms=3,
-        color="#0969da",
+        color=PALETTE["line"],
         label="two-pore half-separation $\\delta w_2$",
     )
     ax.plot(
@@ -193,40 +196,41 @@ def plot_resolving_power(ax, res: ResolvingPower) -> None:  # noqa: ANN001
         res.single_step_nm,
         "s--",
         ms=2.5,
-        color="#8250df",
+        color=PALETTE["accent"],
         label="single-pore step $\\delta w_1$ (volume free)",
     )
     ax.plot(w, rho * w, "k:", lw=1.0, label=f"resolved limit {rho:g} w")
     if np.isfinite(res.limit_w_nm):
-        ax.axvline(res.limit_w_nm, color="#cf222e", lw=1.0)
-        ax.axvspan(w[0], res.limit_w_nm, color="#2da44e", alpha=0.08)
+        ax.axvline(res.limit_w_nm, color=PALETTE["fail"], lw=1.0)
+        ax.axvspan(w[0], res.limit_w_nm, color=PALETTE["pass"], alpha=0.08)
         ax.text(
             res.limit_w_nm,
             0.02,
             f"  not resolved above w = {res.limit_w_nm:.3g} nm",
             transform=ax.get_xaxis_transform(),
             fontsize=7,
-            color="#cf222e",
+            color=PALETTE["fail"],
         )
     elif res.all_resolved:
-        ax.axvspan(w[0], w[-1], color="#2da44e", alpha=0.08)
+        ax.axvspan(w[0], w[-1], color=PALETTE["pass"], alpha=0.08)
     ax.set_yscale("log")
     ax.set_xlabel("pore width w (nm)")
     ax.set_ylabel("width resolution (nm)")
     ax.set_title(
         f"resolving power at {res.temperature_K:g} K, {res.pressures_Pa[0]:.2g}-"
-        f"{res.pressures_Pa[-1]:.2g} Pa, noise {res.noise.relative:g} rel + "
-        f"{res.noise.absolute_mmol_cm3:g} mmol/cm$^3$",
+        f"{res.pressures_Pa[-1]:.2g} Pa, noise $\\sqrt{{({res.noise.relative:g}\\,n)^2 + "
+        f"({res.noise.absolute_mmol_cm3:g}\\,\\mathrm{{mmol/cm^3}})^2}}$",
         fontsize=9,
     )
     ax.legend(fontsize=7, loc="upper left")
 
 
-def plot_singular_values(ax, res: ResolvingPower) -> None:  # noqa: ANN001
+def plot_singular_values(ax, res: ResolvingPower) -> None:
+    """Panel: singular values of the kernel matrix."""
     s = res.singular_values
     k = np.arange(1, s.size + 1)
-    ax.semilogy(k, np.where(s > 0, s, np.nan), "o-", ms=3, color="#0969da")
-    ax.axhline(1.0, color="#cf222e", lw=1.0, ls=":")
+    ax.semilogy(k, np.where(s > 0, s, np.nan), "o-", ms=3, color=PALETTE["line"])
+    ax.axhline(1.0, color=PALETTE["fail"], lw=1.0, ls=":")
     ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     ax.set_xlabel("index")
     ax.set_ylabel("singular value (noise units per unit pore volume)")
@@ -237,12 +241,13 @@ def plot_singular_values(ax, res: ResolvingPower) -> None:  # noqa: ANN001
     )
 
 
-def plot_round_trip(ax, rt: RoundTrip) -> None:  # noqa: ANN001
+def plot_round_trip(ax, rt: RoundTrip) -> None:
+    """Panel: a synthetic PSD and its recoveries."""
     med, lo, hi = rt.recovered_band()
     ax.fill_between(
-        rt.widths_nm, lo, hi, color="#0969da", alpha=0.2, lw=0, label="recovered 16-84 %"
+        rt.widths_nm, lo, hi, color=PALETTE["line"], alpha=0.2, lw=0, label="recovered 16-84 %"
     )
-    ax.plot(rt.widths_nm, med, "-", color="#0969da", lw=1.2, label="recovered median")
+    ax.plot(rt.widths_nm, med, "-", color=PALETTE["line"], lw=1.2, label="recovered median")
     ax.plot(rt.widths_nm, rt.true_psd, "k--", lw=1.0, label="synthetic")
     for c in rt.modes_true:
         ax.axvline(c, color="k", lw=0.5, alpha=0.4)
@@ -283,7 +288,7 @@ def write_report(report: CheckReport, kernel: Kernel, folder: str | Path) -> lis
         plot_isotherms(fig.add_subplot(), kernel, t)
         out += _save(fig, folder, f"isotherms_{sfx}")
         fig = _figure(6.4, 4.4)
-        plot_relative_errors(fig.add_subplot(), kernel, t, report.settings.target_rel_error)
+        plot_relative_errors(fig.add_subplot(), kernel, t, report.settings.target_rel_stderr)
         out += _save(fig, folder, f"relative-errors_{sfx}")
         res = [r for r in report.resolving if r.temperature_K == temp]
         if res:
@@ -302,14 +307,8 @@ def write_report(report: CheckReport, kernel: Kernel, folder: str | Path) -> lis
     if temps:
         out += _save(overview_figure(report, kernel, temps[0]), folder, "overview")
     final = folder / "check.json"
-    fd, tmp = tempfile.mkstemp(prefix=".check.", suffix=".json.tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w") as fh:
-            json.dump(report.to_dict(), fh, indent=1)
-        _publish(tmp, final)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(final, "w") as fh:
+        json.dump(report.to_dict(), fh, indent=1)
     out.append(final)
     return out
 
@@ -328,7 +327,7 @@ def overview_figure(report: CheckReport, kernel: Kernel, temperature_K: float) -
     fig = _figure(11.0, 8.2)
     grid = fig.add_gridspec(2, 2)
     plot_isotherms(fig.add_subplot(grid[0, 0]), kernel, t)
-    plot_relative_errors(fig.add_subplot(grid[0, 1]), kernel, t, report.settings.target_rel_error)
+    plot_relative_errors(fig.add_subplot(grid[0, 1]), kernel, t, report.settings.target_rel_stderr)
     res = [r for r in report.resolving if r.temperature_K == temperature_K]
     if res:
         plot_resolving_power(fig.add_subplot(grid[1, 0]), res[0])
@@ -381,16 +380,10 @@ def save_figure(fig: Figure, folder: Path, stem: str) -> list[Path]:
 
 
 def write_json(data: object, folder: Path, name: str) -> Path:
-    """Write ``data`` as JSON to ``folder / name`` atomically (temporary file, then rename)."""
+    """Write ``data`` as JSON to ``folder / name`` atomically (:func:`gcmc.files.atomic_write`)."""
     final = folder / name
-    fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w") as fh:
-            json.dump(data, fh, indent=1)
-        _publish(tmp, final)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(final, "w") as fh:
+        json.dump(data, fh, indent=1)
     return final
 
 

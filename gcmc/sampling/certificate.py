@@ -169,7 +169,9 @@ def _hot_states(
         t_hot = min(t_hot, cs.hot_max_reduced_t * tc)
     temps = hot_chain_temperatures(t0, t_hot, cs.hot_rungs)
     p0 = eos.saturation_pressure(t0)
-    x0 = state.pressure_Pa / p0
+    # the point's p/p0 (its fugacity where the EOS gave no pressure: the hot rungs only need
+    # a path, any path keeps the kernel rung exact)
+    x0 = (state.pressure_Pa if math.isfinite(state.pressure_Pa) else state.fugacity_Pa) / p0
     out = [state]
     k_hot = len(temps) - 1
     x_hot = x0 if cs.hot_relative_pressure is None else cs.hot_relative_pressure
