@@ -162,17 +162,18 @@ def test_dense_point_takes_the_certified_path(engine):
 
 
 @pytest.mark.slow
+@pytest.mark.timeout(3600)
 def test_a_mobile_dense_liquid_is_certified(engine):
     """Argon at 120 K (T/T_c = 0.8) in a 3 sigma pore at p/p0 = 0.5: a dense liquid (rho
     sigma^3 > 0.5) that exchanges readily: the certificate must hold within its budget."""
     model, state, eos = _argon_state(120.0, 0.5)
     cs = C.CertifySettings(
-        equilibration_moves=100_000,
-        production_moves=400_000,
+        equilibration_moves=50_000,
+        production_moves=200_000,
         hot_rungs=3,
         hot_factor=1.1,
         hot_relative_pressure=0.4,
-        budget_cpu_s=600.0,
+        budget_cpu_s=300.0,
     )
     cert = C.certify_filled_point(model, state, 5, cs, eos)
     assert cert.density_per_nm3 * model.probe.sigma_nm**3 > C.DENSE_FILLING
