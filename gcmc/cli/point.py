@@ -104,6 +104,14 @@ def register(sub: argparse._SubParsersAction) -> None:
         "--cutoff", type=float, metavar="NM", help="LJ cutoff in nm (default: 3 sigma)"
     )
     geo.add_argument(
+        "--lateral-box",
+        choices=("square", "hexagonal"),
+        default=None,
+        help="square: max(2 x cutoff, 10 sigma) on both sides; hexagonal: a rectangle holding "
+        "whole rows of a close-packed layer (row spacing 1.1115 sigma); default square, "
+        "hexagonal on the certified path",
+    )
+    geo.add_argument(
         "--epsilon-sf-scale",
         type=float,
         default=None,
@@ -128,6 +136,30 @@ def register(sub: argparse._SubParsersAction) -> None:
         type=int,
         default=0,
         help="trial positions per insertion (1 plain, k > 1 biased, 0 automatic)",
+    )
+    m.add_argument(
+        "--method",
+        choices=("auto", "point", "certified"),
+        default="auto",
+        help="point: the point-wise sampler only; certified: certify the point (hyper-parallel "
+        "tempering preparations and a box-size check, gcmc.sampling.certificate); auto: the "
+        "point-wise sampler, then the certified path when the state is a dense subcritical one "
+        "(slit, T < T_c of the probe, pore density rho sigma^3 > 0.5)",
+    )
+    m.add_argument(
+        "--certify-budget",
+        type=float,
+        default=600.0,
+        metavar="S",
+        help="CPU seconds the certified path may spend",
+    )
+    m.add_argument(
+        "--certify-moves",
+        type=int,
+        default=1_000_000,
+        metavar="N",
+        help="production moves per rung of each tempering chain (first attempt; doubled "
+        "while the certificate fails and the budget allows)",
     )
     m.add_argument("--seed", type=int, default=12345, help="random seed")
     p.add_argument("--json", action="store_true", help="print one JSON object")
@@ -174,6 +206,13 @@ def run(args: argparse.Namespace) -> int:
         names=names,
     )
     settings = point_settings(args.moves, args.replicas, args.insertion_trials, names=names)
+    _check_certified_options(args)
+    if args.lateral_box == "hexagonal" or (
+        args.lateral_box is None and args.method == "certified" and args.box is None
+    ):
+        from gcmc.physics.potentials import with_lateral_box
+
+        model = with_lateral_box(model, "hexagonal")
     load_s = warm_up()
     from tqdm import tqdm
 
@@ -186,9 +225,34 @@ def run(args: argparse.Namespace) -> int:
         disable=None,
         leave=False,
     ) as bar:
-        outcome = simulate(model, reservoir, settings, args.seed, progress=bar.update)
+        result = None
+        if args.method != "certified":
+            result = simulate(model, reservoir, settings, args.seed, progress=bar.update).result
+    certificate = None
+    if args.method == "certified" or (args.method == "auto" and _dense(model, result)):
+        from dataclasses import replace
+
+        from gcmc.physics.potentials import with_lateral_box
+        from gcmc.sampling.certificate import CertifySettings, certify_filled_point
+
+        cs = replace(
+            CertifySettings(),
+            budget_cpu_s=args.certify_budget,
+            production_moves=args.certify_moves,
+            equilibration_moves=max(args.certify_moves // 5, 1000),
+            insertion_trials=args.insertion_trials,
+        )
+        with tqdm(
+            unit="move", unit_scale=True, desc="certify", file=sys.stderr, disable=None, leave=False
+        ) as bar2:
+            certificate = certify_filled_point(
+                model, reservoir.state, args.seed, cs, progress=bar2.update
+            )
+        result = certificate.result
+        model = with_lateral_box(model, "hexagonal")
+    assert result is not None
     run_ = PointRun(
-        result=outcome.result,
+        result=result,
         model=model,
         state=reservoir.state,
         eos=reservoir.eos,
@@ -198,10 +262,60 @@ def run(args: argparse.Namespace) -> int:
         compile_or_cache_load_seconds=load_s,
     )
     if args.json:
-        print(json.dumps(run_.to_dict(), allow_nan=False))
+        from gcmc.api import _jsonable
+
+        payload = run_.to_dict()
+        if certificate is not None:
+            cert = certificate.to_dict()
+            cert.pop("result")
+            payload["certificate"] = _jsonable(cert)
+        print(json.dumps(payload, allow_nan=False))
         return 0
     _print_summary(run_)
+    if certificate is not None:
+        _print_certificate(certificate)
     return 0
+
+
+def _check_certified_options(args: argparse.Namespace) -> None:
+    from gcmc.errors import InputError
+
+    if args.lateral_box is not None and args.bulk:
+        raise InputError("--lateral-box: only for a slit (--width), not with --bulk")
+    if args.lateral_box == "hexagonal" and args.box is not None:
+        raise InputError("--box: not used with --lateral-box hexagonal (the box follows sigma)")
+    if args.method == "certified" and args.bulk:
+        raise InputError("--method certified: only for a slit (--width), not with --bulk")
+    if args.certify_moves < 10_000:
+        raise InputError(f"--certify-moves: at least 10000, got {args.certify_moves}")
+    if not (math.isfinite(args.certify_budget) and args.certify_budget > 0):
+        raise InputError(f"--certify-budget: must be > 0, got {args.certify_budget}")
+
+
+def _dense(model, r) -> bool:  # noqa: ANN001
+    """A dense subcritical slit point: the certified path applies (gcmc.sampling.certificate)."""
+    from gcmc.sampling.certificate import is_dense_subcritical
+
+    if r is None:
+        return False
+    return is_dense_subcritical(model, r.temperature_K, r.density_per_nm3)
+
+
+def _print_certificate(c) -> None:  # noqa: ANN001 - a gcmc.sampling.certificate.Certificate
+    lines = [
+        "",
+        f"  certificate          {'CERTIFIED' if c.certified else 'not certified'}: "
+        f"spread {100 * c.density_spread_rel:.2f} % over {len(c.preparations)} preparations, "
+        f"box check {100 * c.box_difference_rel:+.2f} %, {c.cpu_s:.0f} CPU s, "
+        f"{c.production_moves} production moves per rung, renewals needed {c.min_renewals}",
+    ]
+    for p in c.preparations + ([c.box_check] if c.box_check else []):
+        lines.append(
+            f"    {p.name:<18} box {p.box_nm[0]:.3f} x {p.box_nm[1]:.3f} nm  "
+            f"N {p.molecules_mean:9.2f}  density {p.density_per_nm3:8.4f} /nm^3  "
+            f"drift z {p.drift_z:5.1f}  renewals {p.renewals:6.1f}"
+        )
+    print("\n".join(lines))
 
 
 def _num(value: float, spec: str, unit: str = "") -> str:
@@ -245,7 +359,7 @@ def _print_summary(run_) -> None:  # noqa: ANN001 - a gcmc.api.PointRun
         f"  moves                {r.moves:12d} in {r.seconds:.2f} s "
         f"({r.moves / max(r.seconds, 1e-9):.3g} moves/s; engine compile or cache load "
         f"{run_.compile_or_cache_load_seconds:.1f} s)",
-        f"  converged            {'yes' if r.converged else 'NO'}",
+        f"  converged            {'yes' if r.converged else 'NO'}   (method {r.method})",
     ]
     if r.flags:
         lines.append("  flags: " + "; ".join(r.flags))

@@ -216,8 +216,11 @@ class PoreModel:
     """Everything the engine needs to know about the system, in nm and K.
 
     geometry: "slit" (periodic in x, y; Steele walls at z = 0 and z = H) or "bulk"
-    (periodic cube). ``box_nm`` is the periodic edge (lateral edges of a slit, the cube's
-    edge in bulk). ``width_nm`` is H, nucleus-to-nucleus (ignored in bulk).
+    (periodic cube). ``box_nm`` is the periodic edge (the x edge of a slit, the cube's
+    edge in bulk); ``box_y_nm`` the y edge of a slit (0: the same as ``box_nm``, a square;
+    a rectangle that holds whole rows of a close-packed layer: see
+    :func:`gcmc.physics.potentials.lateral_box_nm`). ``width_nm`` is H, nucleus-to-nucleus
+    (ignored in bulk).
     Bulk uses homogeneous long-range corrections; the slit uses a plain truncation at
     ``cutoff_nm`` (the cutoff policy: see gcmc.physics.potentials.default_cutoff_nm).
     """
@@ -228,6 +231,9 @@ class PoreModel:
     cutoff_nm: float
     box_nm: float
     width_nm: float = 0.0
+    box_y_nm: float = 0.0
+    #: how the lateral box was chosen (recorded only): "square" or "hexagonal"
+    lateral_box: str = "square"
 
     @property
     def solid_fluid(self) -> SolidFluid:
@@ -239,7 +245,8 @@ class PoreModel:
         """Periodic box edges (x, y, z) in nm; z is the pore width in a slit."""
         if self.geometry == BULK:
             return (self.box_nm, self.box_nm, self.box_nm)
-        return (self.box_nm, self.box_nm, self.width_nm)
+        ly = self.box_y_nm if self.box_y_nm > 0 else self.box_nm
+        return (self.box_nm, ly, self.width_nm)
 
     @property
     def volume_nm3(self) -> float:
@@ -257,7 +264,8 @@ class PoreModel:
         """Pore volume for densities: A*w with w = H - sigma_ss (slit), L^3 (bulk)."""
         if self.geometry == BULK:
             return self.volume_nm3
-        return self.box_nm * self.box_nm * max(self.internal_width_nm, 0.0)
+        lx, ly, _ = self.box_lengths_nm
+        return lx * ly * max(self.internal_width_nm, 0.0)
 
     def describe(self, slab_tail: bool = True) -> dict[str, Any]:
         """The model as a plain dict (probe, solid, solid-fluid parameters, geometry, ...) for
@@ -273,6 +281,7 @@ class PoreModel:
             "geometry": self.geometry,
             "cutoff_nm": self.cutoff_nm,
             "box_nm": list(self.box_lengths_nm),
+            "lateral_box": self.lateral_box if self.geometry == SLIT else None,
             "width_H_nm": self.width_nm if self.geometry == SLIT else None,
             "width_w_nm": self.internal_width_nm if self.geometry == SLIT else None,
             "pore_volume_nm3": self.pore_volume_nm3,

@@ -132,3 +132,77 @@ def default_box_nm(cutoff_nm: float, sigma_nm: float) -> float:
     """The periodic edge by default: max(2 r_c, 10 sigma), rounded up to 0.01 nm."""
     edge = max(2.0 * cutoff_nm, MIN_BOX_SIGMA * sigma_nm)
     return math.ceil(edge * 100.0 - 1e-9) / 100.0
+
+
+# --- Lateral box that a close-packed layer fits -----------------------------------------------
+
+#: lateral box kinds: "square" (max(2 r_c, 10 sigma) square) or "hexagonal" (a rectangle
+#: holding whole rows of a close-packed layer at CLOSE_PACKED_SPACING_SIGMA)
+LATERAL_BOXES = ("square", "hexagonal")
+
+
+def triangular_lattice_spacing_sigma(shells: int = 200) -> float:
+    """Nearest-neighbour distance / sigma of a close-packed (triangular) LJ 12-6 monolayer at
+    zero temperature and zero spreading pressure, untruncated potential.
+
+    The energy per molecule of a triangular lattice of spacing a is
+    2 eps [S12 (sigma/a)^12 - S6 (sigma/a)^6] with the lattice sums S_n = sum over lattice
+    vectors r != 0 of |r/a|^-n; its minimum is at a / sigma = (2 S12 / S6)^(1/6) (exact for
+    this model; the sums converge like R^-4 and R^-10, so 200 shells give 1e-9). Result
+    1.1115 (2^(1/6) = 1.1225 would be the isolated pair's minimum).
+    """
+    i = np.arange(-shells, shells + 1, dtype=float)
+    ii, jj = np.meshgrid(i, i, indexing="ij")
+    r2 = ii * ii + ii * jj + jj * jj  # |i a1 + j a2|^2 / a^2 with a1, a2 at 60 degrees
+    r2 = r2[(r2 > 0) & (r2 <= shells * shells)]
+    s6 = float(np.sum(r2**-3))
+    s12 = float(np.sum(r2**-6))
+    return (2.0 * s12 / s6) ** (1.0 / 6.0)
+
+
+#: The row spacing used for hexagonal lateral boxes, in probe diameters: the zero-temperature,
+#: zero-pressure close-packed monolayer of the full LJ potential (see
+#: triangular_lattice_spacing_sigma). Why this value: the Steele wall is smooth (no lateral
+#: corrugation), so a dense layer in a slit chooses its own in-plane spacing, the LJ lattice's
+#: (the slab tail adds the interactions beyond r_c, so the full potential is the right one);
+#: at finite temperature and spreading pressure it differs by about a per cent, which a box
+#: holding whole rows absorbs as a small uniform strain instead of forcing a defect line; the
+#: box-size check of a certificate (gcmc.sampling.certificate) measures what is left.
+CLOSE_PACKED_SPACING_SIGMA = round(triangular_lattice_spacing_sigma(), 4)
+
+
+def lateral_box_nm(
+    kind: str, cutoff_nm: float, sigma_nm: float, scale: float = 1.0
+) -> tuple[float, float, tuple[int, int]]:
+    """(L_x, L_y, (rows along y, molecules per row)) of a slit's periodic lateral box.
+
+    ``"square"``: the default edge max(2 r_c, 10 sigma) x ``scale`` on both sides (rows (0, 0)).
+    ``"hexagonal"``: the smallest rectangle with both edges >= that edge whose x edge holds a
+    whole number n_x of spacings a = CLOSE_PACKED_SPACING_SIGMA sigma and whose y edge an even
+    number n_y of row distances a sqrt(3)/2 (a triangular layer is periodic over two rows), so
+    that a defect-free close-packed layer of n_x n_y molecules fits.
+    """
+    from gcmc.errors import InputError
+
+    if kind not in LATERAL_BOXES:
+        raise InputError(f"lateral_box: {kind!r} is not one of {', '.join(LATERAL_BOXES)}")
+    if not scale >= 1.0:
+        raise InputError(f"lateral box scale: must be >= 1, got {scale!r}")
+    edge = max(2.0 * cutoff_nm, MIN_BOX_SIGMA * sigma_nm) * scale
+    if kind == "square":
+        e = math.ceil(edge * 100.0 - 1e-9) / 100.0
+        return e, e, (0, 0)
+    a = CLOSE_PACKED_SPACING_SIGMA * sigma_nm
+    row = a * math.sqrt(3.0) / 2.0
+    nx = math.ceil(edge / a - 1e-9)
+    ny = math.ceil(edge / row - 1e-9)
+    ny += ny % 2
+    return nx * a, ny * row, (ny, nx)
+
+
+def with_lateral_box(model: PoreModel, kind: str, scale: float = 1.0) -> PoreModel:
+    """The slit ``model`` with its lateral box chosen by :func:`lateral_box_nm`."""
+    from dataclasses import replace
+
+    lx, ly, _ = lateral_box_nm(kind, model.cutoff_nm, model.probe.sigma_nm, scale)
+    return replace(model, box_nm=lx, box_y_nm=ly if kind != "square" else 0.0, lateral_box=kind)

@@ -27,7 +27,12 @@ from gcmc.physics.model import (
     probe_from_table,
     solid_from_table,
 )
-from gcmc.physics.potentials import default_box_nm, default_cutoff_nm
+from gcmc.physics.potentials import (
+    LATERAL_BOXES,
+    default_box_nm,
+    default_cutoff_nm,
+    lateral_box_nm,
+)
 from gcmc.sampling.point import SamplingSettings
 
 KNOWN_SECTIONS = {
@@ -84,6 +89,9 @@ class RunConfig:
     sampling: SamplingSettings
     fit: FitOptions
     seed: int
+    #: "square" (box_nm x box_nm) or "hexagonal" (box_nm x box_y_nm, whole close-packed rows)
+    lateral_box: str = "square"
+    box_y_nm: float = 0.0
 
     @property
     def config_hash(self) -> str:
@@ -93,6 +101,11 @@ class RunConfig:
             "solid": self.solid.to_dict(),
             "cutoff_nm": self.cutoff_nm,
             "box_nm": self.box_nm,
+            **(
+                {"lateral_box": self.lateral_box, "box_y_nm": self.box_y_nm}
+                if self.lateral_box != "square"
+                else {}
+            ),
             "widths_H_nm": self.widths_H_nm,
             "temperatures_K": self.temperatures_K,
             "pressures": [self.pressures.kind, self.pressures.values, self.pressures.descending],
@@ -333,7 +346,17 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
     mf = _Fields(f"{p}: model", data.get("model", {}))
     cutoff = mf.number("cutoff_nm", default_cutoff_nm(probe))
     assert cutoff is not None
-    box = mf.number("box_nm", default_box_nm(cutoff, probe.sigma_nm))
+    lateral = mf.string("lateral_box", "square", LATERAL_BOXES)
+    box_y = 0.0
+    if lateral == "square":
+        box = mf.number("box_nm", default_box_nm(cutoff, probe.sigma_nm))
+    else:
+        if "box_nm" in (data.get("model") or {}):
+            raise InputError(
+                f"{p}: model.box_nm: not used with lateral_box = {lateral!r} (the box follows "
+                "from the probe's sigma and the cutoff)"
+            )
+        box, box_y, _ = lateral_box_nm(lateral, cutoff, probe.sigma_nm)
     assert box is not None
     mf.done()
     if cutoff > 0.5 * box:
@@ -459,4 +482,6 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         sampling=sampling,
         fit=fit,
         seed=seed,
+        lateral_box=lateral,
+        box_y_nm=box_y,
     )

@@ -149,6 +149,8 @@ def pore_model(cfg: RunConfig, w_index: int) -> PoreModel:
         cutoff_nm=cfg.cutoff_nm,
         box_nm=cfg.box_nm,
         width_nm=cfg.widths_H_nm[w_index],
+        box_y_nm=cfg.box_y_nm,
+        lateral_box=cfg.lateral_box,
     )
 
 

@@ -428,6 +428,7 @@ def simulate_ladder(
         above = accepts[k] / attempts[k] if k < n_p - 1 and attempts[k] else math.nan
         out.result.acceptance["swap_lower"] = float(below)
         out.result.acceptance["swap_upper"] = float(above)
+        out.result.method = "exchange"
         points_sorted.append(out)
     points: list[PointOutcome | None] = [None] * n_p
     for pos, k in enumerate(order):

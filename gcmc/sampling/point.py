@@ -139,6 +139,10 @@ class PointResult:
     #: the insertion method (k trial positions, 1 = plain) each replica sampled with; one
     #: value for all replicas of a point (decided once per point, shared_insertion_trials)
     replica_insertion_trials: list[int] = field(default_factory=list)
+    #: which sampler produced the point: "point" (simulate_point), "exchange" (the pressure
+    #: ladder), "tempering" (a rung of a tempering chain), "certified-tempering"
+    #: (gcmc.sampling.certificate)
+    method: str = "point"
 
     def to_dict(self) -> dict[str, Any]:
         """The result as a plain dict."""

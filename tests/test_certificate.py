@@ -1,0 +1,205 @@
+"""The certificate of a filled point (gcmc.sampling.certificate) and the certified path of
+`gcmc point`."""
+
+from __future__ import annotations
+
+import contextlib
+import io
+import json
+import math
+from dataclasses import replace
+
+import pytest
+
+from gcmc.physics.eos import make_eos
+from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe
+from gcmc.physics.potentials import default_cutoff_nm
+from gcmc.sampling import certificate as C
+from gcmc.sampling.point import PointResult, ThermoState
+
+
+def _result() -> PointResult:
+    nan = math.nan
+    return PointResult(
+        *([87.3, 1e4, 1e4, 8e-3, "reference", 0.01] + [0.0] * 14 + [1.0, 0, 0.0]),
+        replica_means=[0.0],
+        replica_stderrs=[0.0],
+        replica_agreement_z=0.0,
+        acceptance={},
+        insertion_trials=1,
+        moves=0,
+        seconds=nan,
+        converged=True,
+    )
+
+
+def _prep(name: str, density: float, **kw) -> C.Preparation:
+    base = dict(
+        name=name,
+        box_nm=(3.4, 3.9),
+        molecules_mean=density * 10.0,
+        molecules_stderr=0.1,
+        molecules_sd=1.0,
+        density_per_nm3=density,
+        drift_z=0.5,
+        drift_passed=True,
+        renewals_hot=10,
+        exchanges=500,
+        renewals=12.0,
+        swap_acceptance=[0.3],
+        cpu_s=1.0,
+        result=_result(),
+    )
+    base.update(kw)
+    return C.Preparation(**base)
+
+
+def _four(**kw) -> list[C.Preparation]:
+    return [
+        _prep(n, d, **kw) for n, d in zip(C.PREPARATIONS, (20.0, 20.05, 19.98, 20.02), strict=True)
+    ]
+
+
+def test_required_renewals_from_the_spread_of_n():
+    # k >= (d_4 sd / (tol mean))^2: sd 1 % of the mean, tol 1 % -> 2.059^2 = 4.24 -> 5
+    p = _prep("below", 100.0, molecules_mean=1000.0, molecules_sd=10.0)
+    assert C.required_renewals([p], 0.01) == 5
+    # a frozen packing (sd = 0): the floor decides
+    assert C.required_renewals([_prep("below", 100.0, molecules_sd=0.0)], 0.01) == 3
+    assert C.D2_FOUR == pytest.approx(2.059)  # d_2 for n = 4 (control-chart table value)
+
+
+def test_agreeing_preparations_are_certified():
+    cert = C.judge_preparations(C.CertifySettings(), _four(), _prep("box", 20.01), 10, 1.0)
+    assert cert.certified and not cert.flags
+    assert cert.result.converged and cert.result.method == "certified-tempering"
+    assert cert.density_per_nm3 == pytest.approx(20.0125)
+    assert cert.density_spread_rel == pytest.approx(0.07 / 20.0125)
+
+
+@pytest.mark.parametrize(
+    ("change", "flag"),
+    [
+        ({"preps": [20.0, 20.3, 19.98, 20.02]}, "preparations_disagree"),
+        ({"drift": True}, "preparation_drift"),
+        ({"renewals": 2.0}, "few_renewals"),
+        ({"box": 20.5}, "box_size_disagrees"),
+    ],
+)
+def test_each_failure_stays_flagged_with_its_reason(change, flag):
+    dens = change.get("preps", [20.0, 20.05, 19.98, 20.02])
+    preps = [_prep(n, d) for n, d in zip(C.PREPARATIONS, dens, strict=True)]
+    if change.get("drift"):
+        preps[1] = replace(preps[1], drift_passed=False, drift_z=5.0)
+    if "renewals" in change:
+        preps[2] = replace(preps[2], renewals=change["renewals"])
+    boxp = _prep("box", change.get("box", 20.01))
+    cert = C.judge_preparations(C.CertifySettings(), preps, boxp, 10, 1.0)
+    assert not cert.certified and not cert.result.converged
+    assert [f.split("[")[0].split(":")[0] for f in cert.flags] == [flag]
+    assert flag in C.CERTIFICATE_FLAGS
+    assert cert.result.flags == cert.flags
+
+
+def _argon_state(t: float, x: float):
+    probe = get_probe("argon")
+    eos = make_eos("reference", probe)
+    b = eos.state(t, x * eos.saturation_pressure(t))
+    state = ThermoState(
+        temperature_K=t,
+        fugacity_Pa=b.fugacity_Pa,
+        pressure_Pa=b.pressure_Pa,
+        bulk_density_per_nm3=b.density_per_nm3,
+        eos="reference",
+    )
+    model = PoreModel(
+        probe=probe,
+        solid=default_solid(),
+        geometry=SLIT,
+        cutoff_nm=default_cutoff_nm(probe),
+        box_nm=3.41,
+        width_nm=1.0215,
+    )
+    return model, state, eos
+
+
+def test_short_certification_runs_end_to_end_and_is_honest(engine):
+    """A budget far too small for argon at 87.3 K in a 3 sigma pore: every part of the
+    certificate is measured, the point is not certified, and the reasons say why."""
+    model, state, eos = _argon_state(87.3, 0.1)
+    cs = C.CertifySettings(
+        equilibration_moves=4_000, production_moves=10_000, hot_rungs=2, budget_cpu_s=0.1
+    )
+    cert = C.certify_filled_point(model, state, 3, cs, eos)
+    assert len(cert.preparations) == 4 and cert.box_check is not None
+    assert [p.name for p in cert.preparations] == list(C.PREPARATIONS)
+    big, small = cert.box_check.box_nm, cert.preparations[0].box_nm
+    assert big[0] * big[1] == pytest.approx(2.0 * small[0] * small[1], rel=0.1)
+    assert not cert.certified and cert.flags
+    assert any(f.startswith("budget_spent") for f in cert.flags)
+    assert all(f.split("[")[0].split(":")[0] in C.CERTIFICATE_FLAGS for f in cert.flags)
+    assert cert.result.method == "certified-tempering" and not cert.result.converged
+    assert C.is_dense_subcritical(model, 87.3, cert.density_per_nm3)
+    assert not C.is_dense_subcritical(model, 160.0, cert.density_per_nm3)  # above T_c
+
+
+def test_dense_point_takes_the_certified_path(engine):
+    from gcmc.cli import main
+
+    args = [
+        "point", "--probe", "argon", "--temperature", "87.3", "--pressure", "1.0e4",
+        "--width", "1.0215", "--moves", "20000", "--certify-moves", "10000",
+        "--certify-budget", "0.1", "--json",
+    ]  # fmt: skip
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        assert main(args) == 0
+    d = json.loads(out.getvalue())
+    assert d["method"] == "certified-tempering"
+    assert d["converged"] is False and d["flags"]  # not certified in this budget, and says so
+    assert d["certificate"]["preparations"][0]["name"] == "below"
+    assert d["model"]["lateral_box"] == "hexagonal"
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(3600)
+@pytest.mark.xfail(
+    strict=True,
+    reason="measured: at 120 K, p/p0 0.5 the 3 sigma argon pore is still too dense to certify "
+    "in 300 CPU s (preparations 22.57-23.15 /nm^3, spread 2.5 %, box -2.0 %); strict, so a "
+    "sampler that certifies it makes this test fail and the mark must go",
+)
+def test_a_mobile_dense_liquid_is_certified(engine):
+    """Argon at 120 K (T/T_c = 0.8) in a 3 sigma pore at p/p0 = 0.5: a dense liquid (rho
+    sigma^3 > 0.5) that exchanges readily: the certificate must hold within its budget."""
+    model, state, eos = _argon_state(120.0, 0.5)
+    cs = C.CertifySettings(
+        equilibration_moves=50_000,
+        production_moves=200_000,
+        hot_rungs=3,
+        hot_factor=1.1,
+        hot_relative_pressure=0.4,
+        budget_cpu_s=300.0,
+    )
+    cert = C.certify_filled_point(model, state, 5, cs, eos)
+    assert cert.density_per_nm3 * model.probe.sigma_nm**3 > C.DENSE_FILLING
+    assert cert.certified, cert.flags
+
+
+@pytest.mark.parametrize(
+    ("extra", "field"),
+    [
+        (["--lateral-box", "hexagonal", "--box", "4"], "--box"),
+        (["--certify-moves", "50"], "--certify-moves"),
+        (["--certify-budget", "-1"], "--certify-budget"),
+    ],
+)
+def test_certified_path_bad_input(extra, field, capsys):
+    from gcmc.cli import main
+
+    args = ["point", "--probe", "argon", "--temperature", "87.3", "--pressure", "1e4"]
+    code = main([*args, "--width", "1.0215", "--moves", "20000", "--json", *extra])
+    out, err = capsys.readouterr()
+    assert code == 2 and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and field in lines[0], err
