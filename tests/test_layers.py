@@ -1,7 +1,8 @@
 """The layer rule of the package (DEVELOPERS.md, "The architecture in a page").
 
-Each layer imports only the layers below it (cli -> quality -> pipeline -> sampling ->
-{physics, kernel} -> errors), and the kernel file format imports nothing beyond numpy and h5py.
+Each layer imports only the layers below it (cli -> pipeline -> {quality, sampling} ->
+{physics, kernel} -> errors: the build calls the quality criteria to refine its kernel), and
+the kernel file format imports nothing beyond numpy and h5py.
 The static contracts live in pyproject.toml ([tool.importlinter]); the runtime test below
 also catches an import hidden inside a function that the static graph sees too, and a
 third-party package pulled in by a dependency.

@@ -89,9 +89,9 @@ from scipy import stats
 from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
 from gcmc.kernel.data import KernelData
+from gcmc.kernel.forms import effective_stderr
 from gcmc.kernel.reader import Kernel
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
-from gcmc.pipeline.fits import effective_stderr
 from gcmc.quality.inversion import METHODS, invert, single_threaded_blas, trapezoid_weights
 from gcmc.quality.resolution import (
     DEFAULT_CHI2_THRESHOLD,
