@@ -149,6 +149,11 @@ def _summary(result) -> None:  # noqa: ANN001
         )
     rows.append(("forms used", ", ".join(f"{k} x{v}" for k, v in forms.most_common())))
     rows.append(("CPU time in tasks", f"{float(np.sum(data.task_seconds)):.1f} s"))
+    if result.refinement is not None:
+        from gcmc.cli.kernel import refinement_lines
+
+        for i, line in enumerate(refinement_lines(result.refinement)):
+            rows.append(("refinement" if i == 0 else "", line))
     rows.append(("wall time", f"{seconds:.1f} s"))
     width = max(len(r[0]) for r in rows)
     print("\n".join(f"  {k:<{width}}  {v}" for k, v in rows))

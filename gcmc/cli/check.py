@@ -44,24 +44,26 @@ def register(sub: argparse._SubParsersAction) -> None:
     c.add_argument(
         "--target-rel-error",
         type=float,
-        default=0.02,
+        default=None,
         metavar="R",
-        help="target relative standard error of a point",
+        help="target relative standard error of a point (default: the kernel's stored "
+        "target, else 0.02)",
     )
     n = c.add_argument_group("experiment (resolving power and round trip)")
     n.add_argument(
         "--noise-rel",
         type=float,
-        default=0.01,
+        default=None,
         metavar="R",
-        help="relative noise of a measured amount",
+        help="relative noise of a measured amount (default: the kernel's stored target, else 0.01)",
     )
     n.add_argument(
         "--noise-abs-mmol-cm3",
         type=float,
-        default=0.01,
+        default=None,
         metavar="A",
-        help="absolute noise of a measured amount, mmol per cm3 of pore volume",
+        help="absolute noise of a measured amount, mmol per cm3 of pore volume (default: "
+        "the kernel's stored target, else 0.01)",
     )
     src = n.add_mutually_exclusive_group()
     src.add_argument(
@@ -69,7 +71,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="FILE",
         help="the experiment's pressures in Pa, a text file (numbers separated by "
         "spaces, commas or new lines; '#' starts a comment); default: the "
-        "kernel's own",
+        "kernel's stored target's, else the kernel's own",
     )
     src.add_argument(
         "--p-range",
@@ -188,6 +190,14 @@ def run_check(args: argparse.Namespace) -> int:
     _positive("target-rel-error", args.target_rel_error)
     _positive("noise-rel", args.noise_rel, allow_zero=True)
     _positive("noise-abs-mmol-cm3", args.noise_abs_mmol_cm3, allow_zero=True)
+    kernel = open_kernel(args.kernel)
+    target = stored_target(kernel)
+    if args.target_rel_error is None:
+        args.target_rel_error = target.target_rel_error if target else 0.02
+    if args.noise_rel is None:
+        args.noise_rel = target.noise_rel if target else 0.01
+    if args.noise_abs_mmol_cm3 is None:
+        args.noise_abs_mmol_cm3 = target.noise_abs_mmol_cm3 if target else 0.01
     _positive("chi2-threshold", args.chi2_threshold)
     _positive("resolution-fraction", args.resolution_fraction)
     _positive("pore-volume", args.pore_volume)
@@ -208,9 +218,10 @@ def run_check(args: argparse.Namespace) -> int:
         if args.p_points < 2:
             raise InputError(f"--p-points: need at least 2, got {args.p_points}")
         pressures = np.geomspace(lo, hi, args.p_points)
+    elif target is not None and target.pressures_Pa is not None:
+        pressures = target.pressures_array()
     if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
         raise InputError(f"--report {args.report}: exists and is not a folder")
-    kernel = open_kernel(args.kernel)
     temps = None if args.temperature is None else (float(args.temperature),)
     if temps is not None:
         kernel.temperature_index(temps[0])  # InputError naming the kernel's temperatures
@@ -227,6 +238,8 @@ def run_check(args: argparse.Namespace) -> int:
         inversion_method=args.inversion,
     )
     report = run_checks(kernel, settings)
+    if target is not None and not args.json:
+        print(f"target (stored in the kernel; options override): {target.describe()}")
     written = []
     if args.report is not None:
         from gcmc.quality.report import write_report
@@ -243,6 +256,20 @@ def run_check(args: argparse.Namespace) -> int:
         if written:
             print(f"report: {len(written)} file(s) in {args.report}")
     return report.exit_code
+
+
+def stored_target(kernel):  # noqa: ANN001, ANN201 - a gcmc.reader.Kernel
+    """The quality target a kernel was built for (its provenance's ``target``), or None."""
+    from gcmc.quality.target import QualityTarget
+
+    d = kernel.data.provenance.get("target") if isinstance(kernel.data.provenance, dict) else None
+    if d is None:
+        return None
+    return QualityTarget.from_dict(d, where=f"{args_label(kernel)}: provenance target")
+
+
+def args_label(kernel) -> str:  # noqa: ANN001
+    return str(kernel.path) if kernel.path is not None else kernel.name
 
 
 def run_diff(args: argparse.Namespace) -> int:

@@ -359,10 +359,10 @@ def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bo
             open_lines += [f"not run (budget): {c}" for c in rp.cut_by_budget]
             if r > target.max_rounds:
                 stop = f"max_rounds = {target.max_rounds} reached"
-                open_lines = [f.line() for f in rp.findings]
+                open_lines = [f.open_line("max_rounds") for f in rp.findings]
             elif spent >= target.cpu_seconds:
                 stop = f"budget spent ({spent:.0f} of {target.cpu_seconds:.0f} CPU-s)"
-                open_lines = [f.line() for f in rp.findings]
+                open_lines = [f.open_line("budget") for f in rp.findings]
             elif rp.empty:
                 if not rp.findings:
                     stop = "target met"

@@ -72,6 +72,11 @@ class Finding:
     def line(self) -> str:
         return f"{self.kind} at {self.where}: {self.detail} -> {self.action}"
 
+    def open_line(self, why: str) -> str:
+        """The line for a finding left open because the rounds stopped (``why``)."""
+        action = f"not acted on ({why})" if self.action in ("rerun", "widths") else self.action
+        return f"{self.kind} at {self.where}: {self.detail} -> {action}"
+
 
 @dataclass
 class RoundPlan:
@@ -343,9 +348,13 @@ def plan_round(
     for f, key, wanted in point_findings(data, layout, target, ts):
         t, j, b, k = key
         ladder = layout.ladders[t][j]
-        base = _ladder_cpu(costs, ladder) / max(n_p * (2 if len(data.points) > 1 else 1), 1)
-        if not np.isfinite(base):
-            base = 0.0
+        # a point's cost: its own measured seconds at its current step, per unit of effort
+        sec = data.points[BRANCHES[b]]["seconds"][t, j, k]
+        cur = layout.overrides[key].step if key in layout.overrides else 0
+        base = float(sec) / step(cur).cost_factor if np.isfinite(sec) and sec > 0 else 0.0
+        if base == 0.0:
+            base = _ladder_cpu(costs, ladder) / max(n_p * len(data.points), 1)
+            base = base if np.isfinite(base) else 0.0
         if f.kind == "outlier" and key in layout.overrides:
             # resampled already and still an outlier: structure in width, not a bad point
             f.action = "widths"
