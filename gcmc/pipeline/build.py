@@ -308,7 +308,9 @@ def _repair(result: BuildResult, pool, rank: int, size: int, progress: bool, log
     for _ in range(2):
         damaged = verify_tasks(result.plan, tasks) if rank == 0 else None
         if rank == 0 and damaged:
-            log.write("damaged task file(s) recomputed: " + ", ".join(t.key for t in damaged))
+            log.write(
+                "damaged or missing task file(s) recomputed: " + ", ".join(t.key for t in damaged)
+            )
         if not _bcast(size, bool(damaged)):
             return
         missing = _run_round(result, pool, rank, size, progress, log, damaged, "repair")

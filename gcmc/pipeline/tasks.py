@@ -370,11 +370,12 @@ def load_task(path: Path) -> tuple[dict[str, np.ndarray], dict]:
 
 
 def verify_tasks(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
-    """The tasks whose files exist but are damaged; their files are removed (to be rerun)."""
+    """The tasks whose files are damaged (removed, to be recomputed) or gone."""
     bad = []
     for t in tasks:
         p = task_path(plan, t)
         if not p.exists():
+            bad.append(t)
             continue
         try:
             load_task(p)
@@ -452,8 +453,8 @@ def learned_order(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
             try:
                 arrays, _ = load_task(p)
                 measured[(t.t_index, t.w_index)] = float(arrays["seconds"])
-            except Exception:  # noqa: BLE001 - a damaged file is simply re-run
-                p.unlink(missing_ok=True)
+            except Exception:  # noqa: BLE001 - a damaged file is recomputed after the round
+                continue
     if not measured:
         return tasks
     estimate = {(t.t_index, t.w_index): t.estimated_cost for t in plan.tasks}
