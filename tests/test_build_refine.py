@@ -88,7 +88,11 @@ def test_refined_build_records_what_it_did(reference: Any) -> None:
     assert all(a["why"] for a in ref["rounds"][0]["widths_added"])
     for rr in ref["rounds"][0]["reruns"]:
         assert rr["method"] and rr["effort"] >= 2 and rr["why"]
-    assert ref["stop"] and "check" in ref and ref["check"]["verdict"] in ("pass", "warn", "fail")
+    # the check's verdict at the end ("not judged", with the reason, when the check cannot
+    # judge a kernel this coarse: its round trip needs a finite two-pore separation)
+    assert ref["stop"] and ref["check"]["verdict"] in ("pass", "warn", "fail", "not judged")
+    if ref["check"]["verdict"] == "not judged":
+        assert ref["check"]["measured"]["error"]
     # the summary table and `gcmc show` say it
     assert "refinement" in res.stdout and "stopped:" in res.stdout
     from gcmc.cli.kernel import summary
@@ -99,6 +103,7 @@ def test_refined_build_records_what_it_did(reference: Any) -> None:
 
 
 def test_check_uses_the_stored_target(reference: Any) -> None:
+    """`gcmc check KERNEL` takes the stored target (the point-error line shows its 0.05)."""
     import subprocess
     import sys
 

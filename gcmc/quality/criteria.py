@@ -1075,7 +1075,8 @@ def default_psds(res: ResolvingPower) -> tuple[SyntheticPSD, ...]:
     h = float(g[1] - g[0])
 
     def sd(c: float, base: float) -> float:
-        return max(base, MIN_MODE_STEPS * h, res.pair_at(min(max(c, lo), hi)))
+        pair = res.pair_at(min(max(c, lo), hi))  # inf where a pair is never told apart
+        return max(base, MIN_MODE_STEPS * h, pair if np.isfinite(pair) else 0.0)
 
     c1 = lo + 0.2 * r
     s1 = sd(c1, 0.06 * r)
