@@ -163,8 +163,8 @@ def test_damaged_task_file_is_recomputed_in_the_same_run(tmp_path: Path, referen
 
 
 def test_budget_stops_the_loop_and_the_summary_says_so(tmp_path: Path) -> None:
-    text = REFINE.read_text().replace("cpu_hours = 0.05", "cpu_hours = 0.0003")
-    text = text.replace("cpu_hours_per_point = 0.002", "cpu_hours_per_point = 0.0001")
+    text = REFINE.read_text().replace("cpu_hours = 0.2", "cpu_hours = 0.0003")
+    text = text.replace("cpu_hours_per_point = 0.02", "cpu_hours_per_point = 0.0001")
     text = text.replace("max_rounds = 1", "max_rounds = 5")
     cfg = copy_config(tmp_path, text=text)
     res = run_build(cfg, "--workers", "2")
@@ -185,3 +185,27 @@ def test_refine_off_builds_exactly_the_grid(tmp_path: Path) -> None:
     assert "refinement" not in data.provenance and "target" in data.provenance
     assert "refinement" not in res.stdout
     assert not round_files(cfg)
+
+
+def _mpi_ready() -> bool:
+    import shutil
+
+    try:
+        import mpi4py  # noqa: F401
+    except ImportError:
+        return False
+    return shutil.which("mpiexec") is not None
+
+
+@pytest.mark.mpi
+@pytest.mark.skipif(not _mpi_ready(), reason="mpiexec or mpi4py not available")
+def test_mpi_refined_build_gives_the_pool_kernel(tmp_path: Path, reference: Any) -> None:
+    """Rounds under `mpiexec -n 2` (rank 0 plans, every rank takes tasks from the shared
+    counter) end with the kernel of the local pool."""
+    cfg = copy_config(tmp_path, REFINE)
+    res = run_build(cfg, mpi_ranks=2)
+    check_ok(res)
+    assert "2 MPI ranks" in res.stdout
+    log = (output_dir(cfg) / f"{NAME}.log").read_text()
+    assert re.search(r"rank 1 task t000_\w+_b\dp\d+s\d done", log), "rank 1 ran round-1 tasks"
+    same_refined_kernel(reference[0], read_kernel(cfg, NAME))

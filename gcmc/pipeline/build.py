@@ -316,6 +316,7 @@ def _repair(result: BuildResult, pool, rank: int, size: int, progress: bool, log
         missing = _run_round(result, pool, rank, size, progress, log, damaged, "repair")
         if rank == 0 and missing:
             result.missing = list(missing)
+        if _bcast(size, bool(result.missing)):  # every rank stops together
             return
 
 
@@ -340,7 +341,7 @@ def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bo
     while True:
         r += 1
         _repair(result, pool, rank, size, progress, log, history)
-        if rank == 0 and result.missing:
+        if _bcast(size, bool(result.missing)):
             return layout, None
         todo = None
         if rank == 0:
@@ -404,10 +405,11 @@ def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bo
         if todo is None:
             break
         missing = _run_round(result, pool, rank, size, progress, log, todo, f"round {r}")
+        if rank == 0 and missing:
+            result.missing = list(missing)
+        if _bcast(size, bool(result.missing)):
+            return layout, None
         if rank == 0:
-            if missing:
-                result.missing = list(missing)
-                return layout, None
             history += todo
             layout = apply_round(layout, rp, nt)
     if rank != 0:
