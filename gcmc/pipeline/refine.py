@@ -56,6 +56,10 @@ MAX_SPLIT = 4
 #: effort margin over (error / target)^2 for points above the error target
 EFFORT_MARGIN = 1.3
 
+#: an outlier at this many pressures of one width is structure in width (e.g. molecular
+#: layering), not a bad point: new widths beside it rather than reruns
+STRUCTURE_POINTS = 3
+
 PRIORITY = {"unconverged": 0, "henry": 1, "flagged": 2, "error": 3, "outlier": 4}
 
 
@@ -68,6 +72,7 @@ class Finding:
     detail: str
     action: str  # "widths", "rerun", "unresolvable", "given_up"
     ratio: float = 0.0
+    structure: bool = False  # an outlier at several pressures of one width: structure
 
     def line(self) -> str:
         return f"{self.kind} at {self.where}: {self.detail} -> {self.action}"
@@ -295,7 +300,8 @@ def point_findings(
             ok = np.isfinite(d) & np.isfinite(sd) & np.isfinite(curv)
             with np.errstate(divide="ignore", invalid="ignore"):
                 score = np.where(ok, d / (OUTLIER_WARN[0] * sd + OUTLIER_WARN[1] * curv), 0.0)
-            for k in np.flatnonzero(score > 1.0):
+            bad = np.flatnonzero(score > 1.0)
+            for k in bad:
                 key = (t, j, 0, int(k))
                 add(
                     "outlier",
@@ -304,6 +310,8 @@ def point_findings(
                     f"({score[k]:.2f} x the warn tolerance)",
                     current(key) + 1,
                 )
+                if bad.size >= STRUCTURE_POINTS and out[-1][1] == key:
+                    out[-1][0].structure = True
     return out
 
 
@@ -355,17 +363,28 @@ def plan_round(
         if base == 0.0:
             base = _ladder_cpu(costs, ladder) / max(n_p * len(data.points), 1)
             base = base if np.isfinite(base) else 0.0
-        if f.kind == "outlier" and key in layout.overrides:
-            # resampled already and still an outlier: structure in width, not a bad point
-            f.action = "widths"
-            f.detail += "; confirmed by its rerun: resolved by new widths beside it"
-            rp.findings.append(f)
+        if f.kind == "outlier" and (key in layout.overrides or f.structure):
+            # resampled already and still an outlier, or an outlier at several pressures of
+            # its width: structure in width, not a bad point
+            f.detail += (
+                "; confirmed by its rerun" if key in layout.overrides else "; at several pressures"
+            )
             h = layout.widths_H_nm
-            for a, c in ((j - 1, j), (j, j + 1)):
-                if 0 <= a and c < len(h):
-                    if h[c] - h[a] >= 2 * target.min_spacing_nm - 1e-9:
-                        mid = _snap(0.5 * (h[a] + h[c]))
-                        cands.append(((5, -1e9, a), base * n_p, ("width", mid, f.line())))
+            mids = [
+                _snap(0.5 * (h[a] + h[c]))
+                for a, c in ((j - 1, j), (j, j + 1))
+                if 0 <= a and c < len(h) and h[c] - h[a] >= 2 * target.min_spacing_nm - 1e-9
+            ]
+            f.action = "widths" if mids else "unresolvable"
+            f.detail += (
+                ": new widths beside it"
+                if mids
+                else ": the widths beside it are at the minimum spacing "
+                f"{target.min_spacing_nm:g} nm"
+            )
+            rp.findings.append(f)
+            for mid in mids:
+                cands.append(((5, -1e9, mid), base * n_p, ("width", mid, f.line())))
             continue
         if wanted > len(STEPS):
             f.action = "given_up"
