@@ -9,6 +9,7 @@ import json
 import math
 import sys
 from pathlib import Path
+from typing import Any
 
 from gcmc.errors import InputError
 
@@ -23,7 +24,13 @@ singular values of the noise-weighted kernel matrix, the width above which pores
 resolved) and a round trip: synthetic pore-size distributions -> isotherms with noise ->
 a reference regularised inversion -> recovered volumes and modes. Each criterion gets pass,
 warn or fail with its thresholds. Exit code 1 if any criterion fails, 0 otherwise, 2 on bad
-input."""
+input.
+
+With several kernels: check them as a set for one joint inversion (consistency of solid model
+and conventions, smallest accessible width per probe, the resolving power of the stacked
+noise-weighted kernel matrices against each member alone, a joint round trip, and each
+member's own checks); --experiments gives each member its own pressures and noise, and
+--plan-widths ranks kernels by the resolution they add at given widths."""
 
 DIFF_HELP = """Compare two kernels of the same probe: what changed in the model, the equation of
 state and the grids, and, per width, the largest deviation between them in units of the
@@ -40,7 +47,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         description=CHECK_HELP,
         formatter_class=argparse.ArgumentDefaultsHelpFormatter,
     )
-    c.add_argument("kernel", metavar="KERNEL", help="a kernel file (<name>.v<version>.h5)")
+    c.add_argument(
+        "kernel",
+        metavar="KERNEL",
+        nargs="+",
+        help="a kernel file (<name>.v<version>.h5); several: check them as a set",
+    )
     c.add_argument(
         "--target-rel-error",
         type=float,
@@ -122,6 +134,9 @@ def register(sub: argparse._SubParsersAction) -> None:
         "--report", metavar="DIR", help="write plots (PNG and PDF) and check.json into DIR"
     )
     o.add_argument("--json", action="store_true", help="print one JSON object")
+    from gcmc.cli.check_set import add_arguments as _set_arguments
+
+    _set_arguments(c)
     c.set_defaults(func=run_check)
 
     d = sub.add_parser(
@@ -180,18 +195,12 @@ def read_pressure_file(path: str) -> list[float]:
     return values
 
 
-def run_check(args: argparse.Namespace) -> int:
-    import numpy as np
-
-    from gcmc.kernel.reader import open_kernel
-    from gcmc.quality.criteria import CheckSettings, format_table, run_checks
-    from gcmc.quality.resolution import NoiseModel
-
+def validate_common(args: argparse.Namespace, target: Any = None) -> None:
+    """The checks of the options shared by the single and the set check. Options not given
+    take the values of ``target`` (a kernel's stored QualityTarget), else the defaults."""
     _positive("target-rel-error", args.target_rel_error)
     _positive("noise-rel", args.noise_rel, allow_zero=True)
     _positive("noise-abs-mmol-cm3", args.noise_abs_mmol_cm3, allow_zero=True)
-    kernel = open_kernel(args.kernel)
-    target = stored_target(kernel)
     if args.target_rel_error is None:
         args.target_rel_error = target.target_rel_error if target else 0.02
     if args.noise_rel is None:
@@ -206,6 +215,12 @@ def run_check(args: argparse.Namespace) -> int:
         raise InputError(f"--realisations: need at least 2, got {args.realisations}")
     if args.noise_rel == 0 and args.noise_abs_mmol_cm3 == 0:
         raise InputError("--noise-rel/--noise-abs-mmol-cm3: cannot both be 0")
+
+
+def experiment_pressures(args: argparse.Namespace) -> Any:
+    """The experiment's pressures from --pressures-Pa or --p-range (None: the kernel's own)."""
+    import numpy as np
+
     pressures = None
     if args.pressures_Pa is not None:
         pressures = np.array(read_pressure_file(args.pressures_Pa))
@@ -218,7 +233,24 @@ def run_check(args: argparse.Namespace) -> int:
         if args.p_points < 2:
             raise InputError(f"--p-points: need at least 2, got {args.p_points}")
         pressures = np.geomspace(lo, hi, args.p_points)
-    elif target is not None and target.pressures_Pa is not None:
+    return pressures
+
+
+def run_check(args: argparse.Namespace) -> int:
+    from gcmc.cli.check_set import run_check_set, wants_set
+    from gcmc.kernel.reader import open_kernel
+    from gcmc.quality.criteria import CheckSettings, format_table, run_checks
+    from gcmc.quality.resolution import NoiseModel
+
+    if wants_set(args):
+        return run_check_set(args)
+    if args.skip_member_checks:
+        raise InputError("--skip-member-checks: only for a set of kernels")
+    kernel = open_kernel(args.kernel[0])
+    target = stored_target(kernel)
+    validate_common(args, target)
+    pressures = experiment_pressures(args)
+    if pressures is None and target is not None and target.pressures_Pa is not None:
         pressures = target.pressures_array()
     if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
         raise InputError(f"--report {args.report}: exists and is not a folder")

@@ -18,6 +18,8 @@ from typing import Any
 
 import numpy as np
 
+from gcmc.kernel.heat import HeatKernel
+
 #: Quantities stored per simulated point, with their units. Keys are dataset names.
 POINT_FIELDS: dict[str, str] = {
     "density_per_nm3": "nm^-3",  # absolute density per pore volume A*w
@@ -98,3 +100,5 @@ class KernelData:
     task_seeds: np.ndarray  # (T, W) uint64 entropy words per task
     task_seconds: np.ndarray  # (T, W)
     extra: dict[str, np.ndarray] = field(default_factory=dict)
+    # the isosteric-heat kernel (gcmc.kernel.heat), None when the kernel has none
+    heat: HeatKernel | None = None

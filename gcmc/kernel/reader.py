@@ -32,6 +32,7 @@ import numpy as np
 from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.heat import heat_matrix, read_heat
 
 #: The schema this reader writes and understands: major.minor. A file with another major
 #: version is refused; a newer minor version of the same major is read (minor versions only
@@ -375,6 +376,7 @@ def _read_kernel_data(f: h5py.File, values: dict[str, Any] | None = None) -> Ker
         task_seeds=_read(f, "provenance/task_seeds"),
         task_seconds=_read(f, "provenance/task_seconds"),
         extra=extra,
+        heat=read_heat(f, values),
     )
 
 
@@ -497,6 +499,23 @@ class Kernel:
         return out
 
     kernel_matrix = evaluate
+
+    def isosteric_heat(
+        self,
+        pressures_Pa: Iterable[float] | np.ndarray,
+        widths_nm: Iterable[float] | np.ndarray,
+        temperature_K: float,
+        width_axis: str = "w",
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """The isosteric-heat kernel q_st (kJ/mol) and its standard errors, each of shape
+        (len(pressures), len(widths)); see gcmc.kernel.heat. InputError if the file has none."""
+        return heat_matrix(
+            self,
+            np.asarray(pressures_Pa, float),
+            np.asarray(widths_nm, float),
+            temperature_K,
+            width_axis,
+        )
 
     def bulk_density(self, pressures_Pa: np.ndarray, temperature: float | int) -> np.ndarray:
         """Bulk density (molecules/nm^3) of the kernel's EOS at pressures (Pa), interpolated

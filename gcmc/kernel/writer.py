@@ -27,6 +27,7 @@ from gcmc import __version__
 from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.heat import validate_heat, write_heat
 from gcmc.kernel.reader import (
     CHECKSUM_ATTR,
     DICT_LAYOUT_ATTR,
@@ -328,6 +329,8 @@ def validate(data: KernelData) -> None:
     if seeds.dtype.kind == "i" and np.any(seeds < 0):
         raise InputError("task_seeds: must be >= 0 (uint64 entropy words)")
     _arr(data.task_seconds, "task_seconds", (n_t, n_w))
+    if data.heat is not None:
+        validate_heat(data.heat, n_t, n_w)
     if not isinstance(data.extra, dict):
         raise InputError("extra: must be a dict name -> array")
     for key, value in data.extra.items():
@@ -750,6 +753,10 @@ def _write_contents(f: h5py.File, data: KernelData) -> None:
     xg.attrs["order"] = json.dumps(list(data.extra))
     for key, value in data.extra.items():
         _dataset(xg, key, np.asarray(value))
+
+    # ---- isosteric-heat kernel (gcmc.kernel.heat) -------------------------------------------
+    if data.heat is not None:
+        write_heat(f, data.heat)
 
 
 def _fsync_dir(folder: Path) -> None:

@@ -91,3 +91,39 @@ def pore_limit(model: PoreModel, temperature_k: float) -> PoreLimit:
         minimum_potential_k=v_min,
         accessible=v_min < 0.0,
     )
+
+
+def zero_loading_heat_k(model: PoreModel, temperature_k: float, rel_step: float = 1e-3) -> float:
+    """The exact isosteric heat at zero loading, in K (multiply by R for J/mol), from the
+    temperature derivative of the Henry constant.
+
+    In the Henry regime n = K_H(T) f with an ideal bulk gas (f = p), so at constant loading
+    ln p = ln n - ln K_H and the isosteric heat q_st = -R (d ln p / d(1/T))_n is
+        q_st^0 = R d ln K_H / d(1/T).
+    With K_H = beta int exp(-beta V) dz / w this is R T - N_A <V>, <V> the Boltzmann-weighted
+    mean wall energy: the zero-loading limit of the fluctuation formula kT - cov(U, N)/var(N)
+    (Nicholson & Parsonage 1982). The derivative is taken by central differences in 1/T on
+    the quadrature of :func:`pore_limit` (step ``rel_step`` relative: truncation ~1e-6 and
+    quadrature noise ~1e-8 relative).
+
+    Parameters
+    ----------
+    model : PoreModel
+        The slit pore (probe, solid, width).
+    temperature_k : float
+        Temperature (K).
+    rel_step : float
+        Relative step in 1/T.
+
+    Returns
+    -------
+    float
+        q_st^0 / R in K; NaN for a pore that no molecule enters.
+    """
+    x = 1.0 / temperature_k
+    h = rel_step * x
+    lo = pore_limit(model, 1.0 / (x - h))
+    hi = pore_limit(model, 1.0 / (x + h))
+    if not (lo.henry_per_nm3_per_pa > 0 and hi.henry_per_nm3_per_pa > 0):
+        return float("nan")
+    return float((np.log(hi.henry_per_nm3_per_pa) - np.log(lo.henry_per_nm3_per_pa)) / (2.0 * h))

@@ -73,6 +73,7 @@ def assemble_kernel(
     dense table and provenance (``extra_provenance`` is merged into it)."""
     from gcmc.kernel.forms import evaluate_fit
     from gcmc.pipeline.fits import fit_isotherm
+    from gcmc.pipeline.heat import heat_kernel
 
     cfg = plan.config
     layout = layout or grid_layout(plan)
@@ -204,5 +205,12 @@ def assemble_kernel(
         provenance=provenance,
         task_seeds=seeds,
         task_seconds=seconds,
+        heat=heat_kernel(
+            points["adsorption"]["density_per_nm3"],
+            points["adsorption"]["isosteric_heat_kJ_per_mol"],
+            points["adsorption"]["isosteric_heat_kJ_per_mol_stderr"],
+            accessible,
+            points["adsorption"]["density_per_nm3_stderr"],
+        ),
     )
     return data, summaries

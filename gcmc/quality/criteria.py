@@ -9,8 +9,8 @@ reported in mmol/cm^3 (1 nm^-3 = 1/0.602214076 mmol/cm^3). Widths are on the ker
 (the width presented to inversions) with H alongside.
 
 Errors. Comparisons use the points' standard errors after the rule of the fitter
-(:func:`gcmc.pipeline.fits.effective_stderr`: a missing error is replaced by a typical one and every
-error is floored at 0.1 % of the loading); "combined sigma" of two independent points is
+(:func:`gcmc.kernel.forms.effective_stderr`: a missing error is replaced by a typical one and
+every error is floored at 0.1 % of the loading); "combined sigma" of two independent points is
 sqrt(s1^2 + s2^2).
 
 The criteria, in the order of the report:
@@ -1106,9 +1106,22 @@ def default_psds(res: ResolvingPower) -> tuple[SyntheticPSD, ...]:
     )
 
 
-def _peaks(w: np.ndarray, f: np.ndarray) -> np.ndarray:
+def psd_peaks(w: np.ndarray, f: np.ndarray) -> np.ndarray:
     """Positions of the local maxima of f above MODE_PEAK_FRACTION of its maximum, refined by
-    a parabola through the three points around each."""
+    a parabola through the three points around each.
+
+    Parameters
+    ----------
+    w : numpy.ndarray
+        The width grid (nm), increasing.
+    f : numpy.ndarray
+        The PSD on that grid.
+
+    Returns
+    -------
+    numpy.ndarray
+        The peak positions (nm), increasing.
+    """
     if f.size < 3 or np.max(f) <= 0:
         return np.array([])
     level = MODE_PEAK_FRACTION * float(np.max(f))
@@ -1127,9 +1140,24 @@ def _peaks(w: np.ndarray, f: np.ndarray) -> np.ndarray:
     return np.array(out)
 
 
-def _match(true: list[float], found: np.ndarray, window: list[float]) -> list[float]:
+def match_modes(true: list[float], found: np.ndarray, window: list[float]) -> list[float]:
     """The found peak assigned to each true mode, greedy by distance, a peak farther than the
-    mode's window counting as none (NaN: missed)."""
+    mode's window counting as none (NaN: missed).
+
+    Parameters
+    ----------
+    true : list of float
+        The true mode centres (nm).
+    found : numpy.ndarray
+        The recovered peak positions (nm).
+    window : list of float
+        Per true mode, the largest distance (nm) at which a peak still counts for it.
+
+    Returns
+    -------
+    list of float
+        Per true mode, the matched peak position, NaN where none matched.
+    """
     out = [float("nan")] * len(true)
     free = list(range(found.size))
     pairs = sorted(
@@ -1148,11 +1176,42 @@ def _match(true: list[float], found: np.ndarray, window: list[float]) -> list[fl
     return out
 
 
-def inversion_grid(res: ResolvingPower) -> np.ndarray:
-    w = res.widths_w_nm
-    step = float(np.min(np.diff(w)))
-    count = int(np.clip(round((w[-1] - w[0]) / step) + 1, 20, 60))
+def uniform_grid(widths_nm: np.ndarray) -> np.ndarray:
+    """The uniform inversion grid over a set of widths: its step is the smallest spacing
+    between distinct widths, with 20 to 60 points.
+
+    Parameters
+    ----------
+    widths_nm : numpy.ndarray
+        The widths (nm); repeated values count once.
+
+    Returns
+    -------
+    numpy.ndarray
+        The grid (nm), from the smallest to the largest width.
+
+    Raises
+    ------
+    InputError
+        Fewer than two distinct finite widths (no step can be defined: a single width or
+        repeated equal widths would give an infinite or undefined point count).
+    """
+    w = np.unique(np.asarray(widths_nm, dtype=float))
+    w = w[np.isfinite(w)]
+    if w.size >= 2:
+        steps = np.diff(w)
+        steps = steps[steps > 1e-9 * max(float(w[-1] - w[0]), 1e-300)]
+    else:
+        steps = np.zeros(0)
+    if steps.size == 0:
+        raise InputError("width grid: need at least 2 distinct widths for an inversion grid")
+    count = int(np.clip(round((w[-1] - w[0]) / float(np.min(steps))) + 1, 20, 60))
     return np.linspace(float(w[0]), float(w[-1]), count)
+
+
+def inversion_grid(res: ResolvingPower) -> np.ndarray:
+    """The uniform inversion grid of a resolving power's widths (:func:`uniform_grid`)."""
+    return uniform_grid(res.widths_w_nm)
 
 
 def round_trip(
@@ -1210,7 +1269,7 @@ def _round_trip(
                 f"modes at {c0:.3g} and {c1:.3g} nm closer than max(2 dw_2, "
                 f"{ROUND_TRIP_SEPARATION:g} (sd1 + sd2)) = {need:.3g} nm"
             )
-    true_peaks = _peaks(fine, f_fine)
+    true_peaks = psd_peaks(fine, f_fine)
     if true_peaks.size < len(psd.modes):
         reasons.append("the true PSD has fewer maxima than modes")
     resolvable = not reasons
@@ -1223,7 +1282,7 @@ def _round_trip(
         inv = invert(k_grid, grid, b, sigma, method=settings.inversion_method)
         recs.append(inv.psd)
         vols.append(float(np.sum(inv.psd * trapezoid_weights(grid))))
-        modes.append(_match(centres, _peaks(grid, inv.psd), windows))
+        modes.append(match_modes(centres, psd_peaks(grid, inv.psd), windows))
         lams.append(inv.lam)
     recs = np.array(recs)
     rt = RoundTrip(
@@ -1419,7 +1478,11 @@ __all__ = [
     "check_width_gaps",
     "check_width_outliers",
     "default_psds",
+    "uniform_grid",
     "format_table",
+    "inversion_grid",
+    "match_modes",
+    "psd_peaks",
     "round_trip",
     "run_checks",
     "runs_test",

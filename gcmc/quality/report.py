@@ -352,11 +352,55 @@ def overview_figure(report: CheckReport, kernel: Kernel, temperature_K: float) -
 
 __all__ = [
     "FORMATS",
+    "new_figure",
     "overview_figure",
     "plot_isotherms",
     "plot_relative_errors",
     "plot_resolving_power",
     "plot_round_trip",
     "plot_singular_values",
+    "report_folder",
+    "save_figure",
+    "write_json",
     "write_report",
 ]
+
+
+# --------------------------------------------------------------------------------------------
+# the machinery, for other report pages (gcmc.quality.joint_report)
+# --------------------------------------------------------------------------------------------
+def new_figure(width: float, height: float) -> Figure:
+    """A matplotlib Figure (inches) on the Agg canvas: no pyplot, no display needed."""
+    return _figure(width, height)
+
+
+def save_figure(fig: Figure, folder: Path, stem: str) -> list[Path]:
+    """Lay the figure out and write ``<stem>.png`` and ``<stem>.pdf`` into ``folder``, each
+    under a temporary name renamed when complete; return the paths."""
+    return _save(fig, folder, stem)
+
+
+def write_json(data: object, folder: Path, name: str) -> Path:
+    """Write ``data`` as JSON to ``folder / name`` atomically (temporary file, then rename)."""
+    final = folder / name
+    fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=folder)
+    try:
+        with os.fdopen(fd, "w") as fh:
+            json.dump(data, fh, indent=1)
+        _publish(tmp, final)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return final
+
+
+def report_folder(folder: str | Path) -> Path:
+    """The report folder, created if needed; InputError when it cannot be made or written."""
+    folder = Path(folder)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"--report {folder}: cannot create the folder ({exc})") from None
+    if not os.access(folder, os.W_OK):
+        raise InputError(f"--report {folder}: folder is not writable")
+    return folder

@@ -222,9 +222,22 @@ def resolution_from_matrix(
     return {"single": single, "fixed": fixed, "pair": pair, "noise_share": share}
 
 
-def _extrapolate_ends(w: np.ndarray, d: np.ndarray) -> np.ndarray:
+def extrapolate_ends(w: np.ndarray, d: np.ndarray) -> np.ndarray:
     """dw_2 at the two end widths, where no centred second difference exists: extrapolated
-    linearly in ln dw_2 from the two nearest interior widths (copied when there is only one)."""
+    linearly in ln dw_2 from the two nearest interior widths (copied when there is only one).
+
+    Parameters
+    ----------
+    w : numpy.ndarray
+        The widths (nm), increasing.
+    d : numpy.ndarray
+        dw_2 at those widths (nm); the two end values are replaced.
+
+    Returns
+    -------
+    numpy.ndarray
+        A copy of ``d`` with the end values extrapolated.
+    """
     d = np.array(d, dtype=float)
     if w.size < 4:
         if w.size == 3:
@@ -352,7 +365,7 @@ def resolving_power(
         var2[:, 0], var2[:, -1] = var2[:, 1], var2[:, -2]
     sigma = noise.sigma(k)
     out = resolution_from_matrix(k, d1, d2, sigma, chi2_threshold, var2)
-    pair = _extrapolate_ends(w, out["pair"])
+    pair = extrapolate_ends(w, out["pair"])
     ratio = pair / w
     resolved = ratio <= resolution_fraction
     all_res = bool(resolved[-1])
@@ -395,6 +408,7 @@ __all__ = [
     "NoiseModel",
     "ResolvingPower",
     "check_pressures",
+    "extrapolate_ends",
     "kernel_relative_errors",
     "resolution_from_matrix",
     "resolving_power",
