@@ -148,7 +148,8 @@ def _summary(result) -> None:  # noqa: ANN001
             )
         )
     rows.append(("forms used", ", ".join(f"{k} x{v}" for k, v in forms.most_common())))
-    rows.append(("CPU time in tasks", f"{float(np.sum(data.task_seconds)):.1f} s"))
+    # the tasks' own clocks, summed (wall time per task: on a loaded machine more than CPU)
+    rows.append(("time in tasks", f"{float(np.sum(data.task_seconds)):.1f} s (summed)"))
     if result.refinement is not None:
         from gcmc.cli.kernel import refinement_lines
 
