@@ -29,9 +29,10 @@ sys.path.insert(0, str(REPO))
 
 def _variant(text: str, out: Path, refine: bool) -> str:
     text = re.sub(r"(?m)^output = .*$", f'output = "{out.as_posix()}"', text)
-    if "[target]" not in text:
+    if not re.search(r"(?m)^\[target\]$", text):
         text += "\n[target]\n"
-    return text.replace("[target]\n", f"[target]\nrefine = {'true' if refine else 'false'}\n", 1)
+    flag = "true" if refine else "false"
+    return re.sub(r"(?m)^\[target\]$", f"[target]\nrefine = {flag}", text, count=1)
 
 
 def _cpu_seconds(result) -> float:  # noqa: ANN001

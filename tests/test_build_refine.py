@@ -176,7 +176,7 @@ def test_budget_stops_the_loop_and_the_summary_says_so(tmp_path: Path) -> None:
 
 
 def test_refine_off_builds_exactly_the_grid(tmp_path: Path) -> None:
-    text = REFINE.read_text().replace("[target]\n", "[target]\nrefine = false\n")
+    text = REFINE.read_text().replace("\n[target]\n", "\n[target]\nrefine = false\n")
     cfg = copy_config(tmp_path, text=text)
     res = run_build(cfg, "--workers", "2")
     check_ok(res)

@@ -26,8 +26,8 @@ def quickstart_text(out: Path, refine: bool) -> str:
     text = text.replace('output = "../runs/quickstart"', f'output = "{out}"')
     assert str(out) in text, "the quickstart's output line changed; update this test"
     if not refine:
-        assert "[target]\n" in text
-        text = text.replace("[target]\n", "[target]\nrefine = false\n", 1)
+        assert "\n[target]\n" in text
+        text = text.replace("\n[target]\n", "\n[target]\nrefine = false\n", 1)
     return text
 
 
