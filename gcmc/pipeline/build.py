@@ -337,6 +337,7 @@ def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bo
     rounds: list[dict] = []
     stop, open_lines = "", []
     costs: dict[str, float] = {}
+    ratio: dict[str, float] = {}  # CPU / wall seconds of each task file
     r = 0
     while True:
         r += 1
@@ -349,6 +350,8 @@ def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bo
                 if t.key not in costs:
                     arrays, _ = load_task(task_path(plan, t))
                     costs[t.key] = task_cpu_seconds(arrays)
+                    wall = float(arrays["seconds"])
+                    ratio[t.key] = min(costs[t.key] / wall, 1.0) if wall > 0 else 1.0
             spent = float(sum(costs[t.key] for t in history))
             data, _ = assemble_kernel(plan, result.version, layout)
             index = {lad.width_key: j for j, lad in enumerate(layout.ladders[0])}
@@ -357,7 +360,7 @@ def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bo
                 if t.is_rerun:
                     key = (t.t_index, index[t.ladder().width_key], t.branch, t.point)
                     point_spent[key] = point_spent.get(key, 0.0) + costs[t.key]
-            rp = plan_round(data, layout, target, costs, spent, point_spent)
+            rp = plan_round(data, layout, target, costs, spent, point_spent, ratio)
             open_lines = [f.line() for f in rp.findings if f.action not in ("rerun", "widths")]
             open_lines += [f"not run (budget): {c}" for c in rp.cut_by_budget]
             if r > target.max_rounds:

@@ -326,6 +326,7 @@ def plan_round(
     costs: dict[str, float],
     spent_cpu_seconds: float,
     point_spent: dict[tuple[int, int, int, int], float],
+    cpu_per_wall: dict[str, float] | None = None,
 ) -> RoundPlan:
     """The next round: new widths and point reruns, in priority order, cut to the budget.
 
@@ -343,6 +344,10 @@ def plan_round(
         CPU seconds spent so far (every task file of every round).
     point_spent : dict
         Estimated CPU seconds already spent on reruns of each point.
+    cpu_per_wall : dict, optional
+        CPU over wall seconds of each task file, by task key: a point's recorded (wall)
+        seconds times its task's ratio estimate its CPU cost (on a loaded machine the wall
+        time is several times the CPU time). Default 1.
 
     Returns
     -------
@@ -359,7 +364,9 @@ def plan_round(
         # a point's cost: its own measured seconds at its current step, per unit of effort
         sec = data.points[BRANCHES[b]]["seconds"][t, j, k]
         cur = layout.overrides[key].step if key in layout.overrides else 0
-        base = float(sec) / step(cur).cost_factor if np.isfinite(sec) and sec > 0 else 0.0
+        src = layout.overrides[key] if key in layout.overrides else ladder
+        ratio = (cpu_per_wall or {}).get(src.key, 1.0)
+        base = float(sec) * ratio / step(cur).cost_factor if np.isfinite(sec) and sec > 0 else 0.0
         if base == 0.0:
             base = _ladder_cpu(costs, ladder) / max(n_p * len(data.points), 1)
             base = base if np.isfinite(base) else 0.0
