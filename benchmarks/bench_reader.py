@@ -132,7 +132,7 @@ def demo_kernel(n_w: int = 100, n_p: int = 40) -> KernelData:
     )
 
 
-def _median_ms(fn, repeats: int) -> float:  # noqa: ANN001
+def _median_ms(fn, repeats: int) -> float:
     times = []
     for _ in range(repeats):
         t0 = time.perf_counter()

@@ -31,13 +31,13 @@ from dataclasses import replace
 
 os.environ.setdefault("NUMBA_NUM_THREADS", "1")
 
-import numpy as np  # noqa: E402
+import numpy as np
 
-from gcmc.physics.eos import make_eos  # noqa: E402
-from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe  # noqa: E402
-from gcmc.sampling.box import Box, EngineOptions, warm_up  # noqa: E402
-from gcmc.sampling.ladder import simulate_ladder  # noqa: E402
-from gcmc.sampling.point import SamplingSettings, ThermoState, simulate_point  # noqa: E402
+from gcmc.physics.eos import make_eos
+from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe
+from gcmc.sampling.box import Box, EngineOptions, warm_up
+from gcmc.sampling.ladder import simulate_ladder
+from gcmc.sampling.point import SamplingSettings, ThermoState, simulate_point
 
 REGIMES = {
     "ar-3s-filled": ("argon", 87.3, 3.0, ("relative", 0.1)),

@@ -30,6 +30,7 @@ import pytest
 
 from gcmc.cli import app as cli
 from gcmc.errors import InputError
+from gcmc.kernel import flags as fl
 from gcmc.kernel import forms as F
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
 from gcmc.kernel.reader import Kernel, open_kernel
@@ -302,13 +303,14 @@ def test_wrong_henry_constant_fails(good) -> None:
 def test_unconverged_and_flagged_points(good) -> None:
     d = copy_points(good)
     flags = good.flags["adsorption"].copy()
-    flags[0, 5, 3] = "drift[0]: first vs second half z = 4.1"
+    drift = fl.flag_text(fl.DRIFT, 0, "first vs second half z = 4.1")
+    flags[0, 5, 3] = drift
     d.points["adsorption"]["converged"][0, 5, 3] = False
-    flags[0, 7, 2] = "target_not_reached: rel. error 0.03 > 0.02 within the move budget"
+    flags[0, 7, 2] = fl.flag_text(fl.TARGET_NOT_REACHED, detail="rel. error 0.03 > 0.02")
     d = dataclasses.replace(d, flags={"adsorption": flags})
     c = run_checks(d, HEALTH_ONLY).criterion("point_flags")
     assert c.verdict == "fail" and c.data["n_unconverged"] == 1 and c.data["n_flagged"] == 1
-    assert any("drift" in line for line in c.details)
+    assert any(line.endswith(drift) for line in c.details)
 
 
 def test_point_errors_against_target(good) -> None:

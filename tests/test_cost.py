@@ -105,7 +105,7 @@ def test_plan_orders_tasks_by_the_estimate() -> None:
     assert plan.tasks[0].w_index == 0  # the narrowest pore first (it fills: biased insertion)
 
 
-def test_resumed_build_rescales_the_estimate_by_measured_neighbours(tmp_path, monkeypatch) -> None:  # noqa: ANN001, E501
+def test_resumed_build_rescales_the_estimate_by_measured_neighbours(tmp_path, monkeypatch) -> None:
     """learned_order: the estimate of a pending task is rescaled by what its finished
     neighbours cost against their estimates (the median of those ratios). Pending w0 (finished
     neighbour w1 took its estimate) and w2 (finished neighbours w1, and w3 at m times its

@@ -36,6 +36,7 @@ import pytest
 from scipy import integrate, optimize
 from scipy.stats import t as student_t
 
+from gcmc.kernel import flags as fl
 from gcmc.physics.eos import make_eos
 from gcmc.physics.henry import pore_limit
 from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, Solid, default_solid, get_probe
@@ -56,8 +57,8 @@ def fugacity_pa(activity_nm3: float, temperature_k: float) -> float:
     return activity_nm3 * NM3_PER_M3 * BOLTZMANN_J_PER_K * temperature_k
 
 
-def no_flag(result: object, *prefixes: str) -> bool:
-    return not any(f.startswith(prefixes) for f in result.flags)
+def no_flag(result: object, *kinds: fl.Flag) -> bool:
+    return not any(fl.has_flag(result.flags, k) for k in kinds)
 
 
 # =============================================================================================
@@ -197,7 +198,7 @@ def check_bulk(
 ) -> None:
     rel, rel_err = rho / ref - 1.0, err / ref
     # The error must be trustworthy (a block-average plateau, no drift between the halves) ...
-    assert no_flag(r, "error_unreliable", "drift", "too_few"), r.flags
+    assert no_flag(r, fl.ERROR_UNRELIABLE, fl.DRIFT, fl.TOO_FEW_SAMPLES), r.flags
     # ... and small enough for the test to resolve a 1 % deviation at 3 standard errors.
     assert 3 * rel_err < max_rel_err, rel_err
     # Thol et al. (2016) EOS: within 3 standard errors (the EOS's own uncertainty, < 0.2 %
@@ -241,7 +242,7 @@ def test_bulk_liquid_truncation_effect_is_below_the_errors() -> None:
     case = BULK_CASES[3]
     a, ea, _, ra = run_bulk(case, 8.0, 3.0, 1_000_000, 12_000_000, seed=3)
     b, eb, _, rb = run_bulk(case, 8.0, 4.0, 1_000_000, 12_000_000, seed=4)
-    assert no_flag(ra, "error_unreliable", "drift") and no_flag(rb, "error_unreliable", "drift")
+    assert no_flag(ra, fl.ERROR_UNRELIABLE, fl.DRIFT) and no_flag(rb, fl.ERROR_UNRELIABLE, fl.DRIFT)
     assert abs(a - b) <= 3 * math.hypot(ea, eb), (a, ea, b, eb)
 
 
@@ -493,7 +494,7 @@ def test_ideal_gas_mean_and_poisson_fluctuations(k: int) -> None:
     )
     out = simulate_point(model, state, settings, 31 + k)
     r = out.result
-    assert no_flag(r, "error_unreliable", "too_few")
+    assert no_flag(r, fl.ERROR_UNRELIABLE, fl.TOO_FEW_SAMPLES)
     assert r.insertion_trials == k
     exact = z * model.volume_nm3  # beta f V
     assert r.molecules_stderr / exact < 0.01  # can resolve an off-by-one in (N + 1): 5 %
@@ -547,7 +548,7 @@ def test_biased_insertion_samples_the_same_ensemble(case: BiasCase) -> None:
             insertion_trials=k,
         )
         res[k] = simulate_point(model, state, settings, 500 + k).result
-        assert no_flag(res[k], "error_unreliable", "drift"), res[k].flags
+        assert no_flag(res[k], fl.ERROR_UNRELIABLE, fl.DRIFT), res[k].flags
         assert res[k].insertion_trials == k
     a, b = res[1], res[10]
     comb = math.hypot(a.molecules_stderr, b.molecules_stderr)
@@ -587,7 +588,7 @@ def test_too_narrow_pore_holds_no_molecules() -> None:
     )
     r = simulate_point(model, ThermoState(temperature_K=t, fugacity_Pa=f), settings, 1).result
     assert r.molecules_mean == 0.0 and r.density_per_nm3 == 0.0
-    assert "inaccessible" in r.flags
+    assert fl.has_flag(r.flags, fl.INACCESSIBLE) and r.flags == [fl.flag_text(fl.INACCESSIBLE)]
     box = Box(model, t, activity_per_nm3(f, t), rng_state=seed_state(2))
     box.run(200_000)
     assert box.n_molecules == 0 and box.counters[3] == 0  # no accepted insertion
@@ -696,7 +697,7 @@ def loading(
         model, ThermoState(temperature_K=t, fugacity_Pa=f), settings, seed, start=start
     )
     if check:  # a run whose loading is compared needs a trustworthy error
-        assert no_flag(out.result, "error_unreliable", "drift"), out.result.flags
+        assert no_flag(out.result, fl.ERROR_UNRELIABLE, fl.DRIFT), out.result.flags
     return out
 
 

@@ -40,7 +40,7 @@ print(json.dumps(out))
 """
 
 
-def test_compiled_and_cached_engine_give_the_same_trajectory(tmp_path) -> None:  # noqa: ANN001
+def test_compiled_and_cached_engine_give_the_same_trajectory(tmp_path) -> None:
     """Exact requirement (bit-for-bit builds across processes): the process that compiles the
     engine into an empty cache and one that loads it from there run the same trajectories to
     the last bit. A compiled wrapper around the move loop once broke this (its linked copy of

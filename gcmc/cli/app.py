@@ -22,6 +22,7 @@ _MODULES = {
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``gcmc`` command, with every subcommand registered."""
     parser = argparse.ArgumentParser(
         prog="gcmc",
         description=(
@@ -49,6 +50,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run the ``gcmc`` command line; returns the exit code (2 for an input error)."""
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "command", None):

@@ -17,6 +17,7 @@ command after an interruption and the build continues where it stopped. Under
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``build`` subcommand."""
     p = sub.add_parser(
         "build",
         help="build a kernel from a run config",
@@ -40,6 +41,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``gcmc build``: build (or resume) a kernel and print its summary; the exit code."""
     from gcmc.errors import InputError
     from gcmc.pipeline.build import build_kernel, mpi_rank_and_size
 
@@ -74,7 +76,7 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _print_plan(result) -> None:  # noqa: ANN001
+def _print_plan(result) -> None:
     cfg, plan = result.config, result.plan
     print(
         f"{cfg.name} v{result.version}: {cfg.probe.name}, {len(cfg.temperatures_K)} "
@@ -85,7 +87,7 @@ def _print_plan(result) -> None:  # noqa: ANN001
     )
 
 
-def _print_incomplete(result) -> None:  # noqa: ANN001
+def _print_incomplete(result) -> None:
     from gcmc.pipeline.build import failure_line
 
     plan, missing = result.plan, result.missing
@@ -101,7 +103,7 @@ def _print_incomplete(result) -> None:  # noqa: ANN001
         print(f"  {failure_line(plan, t)}", file=sys.stderr)
 
 
-def _summary(result) -> None:  # noqa: ANN001
+def _summary(result) -> None:
     from gcmc.cli.kernel import _flag_tokens
 
     plan, data, fits, report = result.plan, result.data, result.fits, result.report

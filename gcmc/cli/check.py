@@ -41,6 +41,7 @@ probes)."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``check`` and ``diff`` subcommands."""
     c = sub.add_parser(
         "check",
         help="quality checks of a kernel",
@@ -237,6 +238,8 @@ def experiment_pressures(args: argparse.Namespace) -> Any:
 
 
 def run_check(args: argparse.Namespace) -> int:
+    """Run ``gcmc check``: judge a kernel (or a set), print the verdicts, write the report;
+    the exit code."""
     from gcmc.cli.check_set import run_check_set, wants_set
     from gcmc.kernel.reader import open_kernel
     from gcmc.quality.criteria import CheckSettings, format_table, run_checks
@@ -305,6 +308,7 @@ def args_label(kernel) -> str:  # noqa: ANN001
 
 
 def run_diff(args: argparse.Namespace) -> int:
+    """Run ``gcmc diff``: compare two kernels and print the differences; the exit code."""
     from gcmc.kernel.reader import open_kernel
     from gcmc.quality.diff import diff_kernels, format_diff
 

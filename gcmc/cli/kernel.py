@@ -7,14 +7,18 @@ import argparse
 import csv
 import io
 import json
-import os
-import tempfile
 from collections import Counter
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_write
+from gcmc.kernel.flags import count_kinds
+
+if TYPE_CHECKING:
+    from gcmc.kernel.reader import Kernel
 
 SHOW_HELP = """Verify a kernel file (schema version and checksums) and print a summary: model,
 equation of state, axes, simulated points and their flags, fitted forms and provenance."""
@@ -42,6 +46,7 @@ CSV_COLUMNS = (
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``show`` and ``export`` subcommands."""
     s = sub.add_parser("show", help="summarise a kernel file", description=SHOW_HELP)
     s.add_argument("kernel", metavar="KERNEL", help="a kernel file (<name>.v<version>.h5)")
     s.set_defaults(func=run_show)
@@ -71,21 +76,11 @@ def _dict_line(d: dict) -> str:
 
 
 def _flag_tokens(flags: np.ndarray) -> Counter:
-    """Count flag kinds: a point's flags are joined by "; "; a flag's kind is the text before
-    its first ":" without an index suffix such as "[0]" (e.g. "error_unreliable[0]: no
-    plateau ..." counts as "error_unreliable")."""
-    counts: Counter = Counter()
-    for item in np.asarray(flags).ravel():
-        for flag in str(item).split(";"):
-            kind = flag.split(":", 1)[0].strip()
-            if "[" in kind:
-                kind = kind[: kind.index("[")]
-            if kind:
-                counts[kind] += 1
-    return counts
+    """Count flag kinds over an array of points' flags (gcmc.kernel.flags.count_kinds)."""
+    return count_kinds(np.asarray(flags).ravel())
 
 
-def summary(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
+def summary(kernel: Kernel) -> str:
     """The text printed by `gcmc show`."""
     d = kernel.data
     info = kernel.info
@@ -244,6 +239,7 @@ def refinement_lines(ref: dict, details: int = 8) -> list[str]:
 
 
 def run_show(args: argparse.Namespace) -> int:
+    """Run ``gcmc show``: print a kernel's summary; the exit code."""
     from gcmc.kernel.reader import open_kernel
 
     print(summary(open_kernel(args.kernel)))
@@ -257,7 +253,7 @@ def _num(x: float) -> str:
     return repr(float(x))
 
 
-def csv_text(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
+def csv_text(kernel: Kernel) -> str:
     """The long-format CSV of `gcmc export --format csv`: one row per grid point of the
     adsorption branch (finite pressure) and per simulated point of the other branches."""
     from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
@@ -301,7 +297,7 @@ def csv_text(kernel) -> str:  # noqa: ANN001 - a gcmc.reader.Kernel
     return buf.getvalue()
 
 
-def npz_arrays(kernel) -> dict[str, np.ndarray]:  # noqa: ANN001 - a gcmc.reader.Kernel
+def npz_arrays(kernel: Kernel) -> dict[str, np.ndarray]:
     """The arrays of `gcmc export --format npz` (names documented in kernels/README.md)."""
     d = kernel.data
     out: dict[str, np.ndarray] = {}
@@ -385,7 +381,7 @@ def _json_default(o: object) -> object:
     return str(o)
 
 
-def _write_atomic(path: Path, write, force: bool) -> None:  # noqa: ANN001
+def _write_atomic(path: Path, write, force: bool) -> None:
     if path.exists() and not force:
         raise InputError(f"--output: {path} exists (use --force to replace it)")
     if path.is_dir():
@@ -393,21 +389,15 @@ def _write_atomic(path: Path, write, force: bool) -> None:  # noqa: ANN001
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise InputError(f"--output: folder {folder} does not exist")
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    tmp = Path(tmp_name)
     try:
-        with os.fdopen(fd, "wb") as fh:
+        with atomic_write(path, "wb") as fh:
             write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
     except OSError as exc:
         raise InputError(f"--output: cannot write {path} ({exc})") from None
-    finally:
-        tmp.unlink(missing_ok=True)
 
 
 def run_export(args: argparse.Namespace) -> int:
+    """Run ``gcmc export``: write a kernel as CSV or NPZ (atomically); the exit code."""
     from gcmc.kernel.reader import open_kernel
 
     kernel = open_kernel(args.kernel)

@@ -16,6 +16,7 @@ object with --json."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    """Register the ``point`` subcommand."""
     p = sub.add_parser(
         "point",
         help="simulate one state point",
@@ -99,6 +100,7 @@ def _finite(name: str, value: float | None, positive: bool = True) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """Run ``gcmc point``: simulate one state point and print (or write) it; the exit code."""
     from gcmc.physics.eos import make_eos
     from gcmc.physics.model import BULK, SLIT, PoreModel, Probe, default_solid, get_probe
     from gcmc.physics.potentials import default_box_nm, default_cutoff_nm
@@ -214,7 +216,7 @@ def _json_default(o: object) -> object:
         return str(o)
 
 
-def _print_summary(model, r, eos_name: str, compile_s: float) -> None:  # noqa: ANN001
+def _print_summary(model, r, eos_name: str, compile_s: float) -> None:
     geo = (
         f"slit pore H = {model.width_nm:g} nm (w = {model.internal_width_nm:.3f} nm)"
         if model.geometry == "slit"

@@ -19,34 +19,35 @@ from typing import Any
 import numpy as np
 
 from gcmc.kernel.heat import HeatKernel
+from gcmc.kernel.schema import POINT_FIELDS as _POINT_FIELDS
 
-#: Quantities stored per simulated point, with their units. Keys are dataset names.
-POINT_FIELDS: dict[str, str] = {
-    "density_per_nm3": "nm^-3",  # absolute density per pore volume A*w
-    "density_per_nm3_stderr": "nm^-3",
-    "excess_density_per_nm3": "nm^-3",
-    "molecules_mean": "1",
-    "molecules_stderr": "1",
-    "isosteric_heat_kJ_per_mol": "kJ/mol",
-    "isosteric_heat_kJ_per_mol_stderr": "kJ/mol",
-    "fluid_fluid_energy_kJ_per_mol": "kJ/mol",
-    "fluid_solid_energy_kJ_per_mol": "kJ/mol",
-    "statistical_inefficiency": "samples",
-    "drift_z": "1",
-    "replica_agreement_z": "1",
-    "insertion_acceptance": "1",
-    "insertion_trials": "1",
-    "moves": "1",
-    "seconds": "s",
-    "converged": "bool",
-}
+#: Quantities stored per simulated point, with their units (from the schema table).
+POINT_FIELDS: dict[str, str] = dict(_POINT_FIELDS)
 
 
-@dataclass
+@dataclass(frozen=True)
 class FitRecord:
-    """A fitted correlating form for one isotherm (one temperature and width)."""
+    """A fitted correlating form for one isotherm (one temperature and width): the fields a
+    kernel file stores. :class:`gcmc.pipeline.fits.FitResult` extends it with what the fit
+    knows beyond the file (candidates tried, the simulated range, parameters at a bound).
 
-    form: str  # a name of gcmc.kernel.forms.FORMS, "monotone_interpolant" or "zero"
+    Attributes
+    ----------
+    form : str
+        A name of :data:`gcmc.kernel.forms.FORMS`, ``"monotone_interpolant"`` or ``"zero"``.
+    parameters, covariance : numpy.ndarray
+        Parameters in the form's units and their covariance.
+    chi2, reduced_chi2, p_value, aicc : float
+        Goodness of fit.
+    dof : int
+        Degrees of freedom.
+    residuals : numpy.ndarray
+        (simulated - fitted) / stderr at each pressure (or at each simulated point).
+    accepted : bool
+        Passed the goodness-of-fit test.
+    """
+
+    form: str
     parameters: np.ndarray
     covariance: np.ndarray
     chi2: float
@@ -54,12 +55,36 @@ class FitRecord:
     reduced_chi2: float
     p_value: float
     aicc: float
-    residuals: np.ndarray  # (simulated - fitted) / stderr at each pressure
+    residuals: np.ndarray
     accepted: bool
+
+    @property
+    def stderr(self) -> np.ndarray:
+        """Standard errors of the parameters: sqrt of the covariance diagonal."""
+        with np.errstate(invalid="ignore"):
+            return np.sqrt(np.diag(self.covariance))
+
+    def record(self) -> FitRecord:
+        """The stored part alone, as a plain FitRecord (float arrays)."""
+        return FitRecord(
+            form=self.form,
+            parameters=np.asarray(self.parameters, float),
+            covariance=np.asarray(self.covariance, float),
+            chi2=self.chi2,
+            dof=self.dof,
+            reduced_chi2=self.reduced_chi2,
+            p_value=self.p_value,
+            aicc=self.aicc,
+            residuals=np.asarray(self.residuals, float),
+            accepted=self.accepted,
+        )
 
 
 @dataclass
 class KernelData:
+    """A kernel in memory: what the writer stores and the reader returns (shapes in the module
+    docstring; the file layout in :mod:`gcmc.kernel.schema`)."""
+
     name: str
     version: int
     # model and conventions

@@ -223,6 +223,7 @@ class Form:
 
     @property
     def n_parameters(self) -> int:
+        """Number of parameters of the form."""
         return len(self.parameter_names)
 
     def check_parameters(self, parameters: np.ndarray | list[float]) -> np.ndarray:

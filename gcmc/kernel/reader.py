@@ -31,16 +31,20 @@ import numpy as np
 
 from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
+from gcmc.kernel import schema as _schema
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
 from gcmc.kernel.heat import heat_matrix, read_heat
+from gcmc.kernel.schema import (
+    CHECKSUM_ATTR,
+    DICT_LAYOUT_ATTR,
+    FORMAT_NAME,
+    SCHEMA_MAJOR,
+    SCHEMA_VERSION,
+)
 
-#: The schema this reader writes and understands: major.minor. A file with another major
-#: version is refused; a newer minor version of the same major is read (minor versions only
-#: add datasets or attributes).
-SCHEMA_VERSION = "1.0"
-SCHEMA_MAJOR = 1
-FORMAT_NAME = "gcmc-kernel"
-CHECKSUM_ATTR = "checksum_sha256"
+# The schema this reader writes and understands (major.minor, gcmc.kernel.schema): a file
+# with another major version is refused; a newer minor version of the same major is read
+# (minor versions only add datasets or attributes).
 
 #: HDF5 dimension-scale bookkeeping attributes: they hold object references (file addresses),
 #: which change when a file is repacked. The checksum covers the attachments instead, resolved
@@ -166,7 +170,6 @@ def compute_checksums(
 # --------------------------------------------------------------------------------------------
 # attribute dictionaries (probe, solid, EOS parameters)
 # --------------------------------------------------------------------------------------------
-DICT_LAYOUT_ATTR = "dict_layout"
 
 
 def _py(value: Any) -> Any:
@@ -264,6 +267,12 @@ def _read_open_file(f: h5py.File, path: Path) -> Kernel:
         raise InputError(
             f"{path}: checksum mismatch{where}: the file was modified or damaged after writing"
         )
+    missing = missing_rows(f)
+    if missing:
+        raise InputError(
+            f"{path}: not a complete kernel file: missing {', '.join(missing[:5])}"
+            + (f" and {len(missing) - 5} more" if len(missing) > 5 else "")
+        )
     data = _read_kernel_data(f, values)
     info = {
         "schema_version": schema,
@@ -288,8 +297,6 @@ def _read_kernel_data(f: h5py.File, values: dict[str, Any] | None = None) -> Ker
     def _read(f: h5py.File, name: str) -> np.ndarray:
         return _read_value(f, name, values)
 
-    model = f["model"]
-    eos = f["eos"]
     points: dict[str, dict[str, np.ndarray]] = {}
     flags: dict[str, np.ndarray] = {}
     branches = _py(f["points"].attrs["branches"])
@@ -299,7 +306,6 @@ def _read_kernel_data(f: h5py.File, values: dict[str, Any] | None = None) -> Ker
         points[branch] = {name: _read(f, f"points/{branch}/{name}") for name in order}
         flags[branch] = _read(f, f"points/{branch}/flags")
 
-    fg = f["fits"]
     density = points["adsorption"]["density_per_nm3"]
     grid = _read(f, "axes/pressure_Pa")
     form_names = _read(f, "fits/form")
@@ -342,42 +348,55 @@ def _read_kernel_data(f: h5py.File, values: dict[str, Any] | None = None) -> Ker
         xg = f["extra"]
         order = json.loads(_py(xg.attrs["order"])) if "order" in xg.attrs else sorted(xg)
         extra = {name: _read(f, f"extra/{name}") for name in order}
-    return KernelData(
-        name=_py(f.attrs["name"]),
-        version=int(_py(f.attrs["version"])),
-        probe=read_attr_dict(model["probe"]),
-        solid=read_attr_dict(model["solid"]),
-        cutoff_nm=float(_py(model.attrs["cutoff_nm"])),
-        box_nm=float(_py(model.attrs["box_nm"])),
-        tail_correction=_py(model.attrs["tail_correction"]),
-        eos=_py(eos.attrs["name"]),
-        eos_parameters=read_attr_dict(eos["parameters"]),
-        width_convention=_py(model.attrs["width_convention"]),
-        pore_volume_convention=_py(model.attrs["pore_volume_convention"]),
-        sampler=_py(f.attrs["sampler"]),
-        temperatures_K=_read(f, "axes/temperature_K"),
-        widths_H_nm=_read(f, "axes/width_H_nm"),
-        widths_w_nm=_read(f, "axes/width_w_nm"),
-        pressures_Pa=_read(f, "axes/pressure_Pa"),
-        relative_pressures=_read(f, "axes/relative_pressure"),
-        saturation_pressures_Pa=_read(f, "eos/saturation_pressure_Pa"),
-        fugacities_Pa=_read(f, "eos/fugacity_Pa"),
-        bulk_density_per_nm3=_read(f, "eos/bulk_density_per_nm3"),
-        points=points,
-        flags=flags,
-        henry_per_nm3_per_pa=_read(f, "limits/henry_constant_per_nm3_per_Pa"),
-        accessible=_read(f, "limits/accessible").astype(bool),
-        fits=fits,
-        above_range=_py(fg.attrs["above_range"]),
-        dense_pressures_Pa=_read(f, "dense/pressure_Pa"),
-        dense_density_per_nm3=_read(f, "dense/density_per_nm3"),
-        config_text=str(_read(f, "provenance/config_text")),
-        provenance=json.loads(str(_read(f, "provenance/provenance_json"))),
-        task_seeds=_read(f, "provenance/task_seeds"),
-        task_seconds=_read(f, "provenance/task_seconds"),
-        extra=extra,
-        heat=read_heat(f, values),
+    fields: dict[str, Any] = {}
+    for e in _schema.SCHEMA:  # the rows that hold a KernelData field, as the table says
+        if e.field is None:
+            continue
+        if e.kind == "attr":
+            fields[e.field] = _attr_value(e, (f[e.group] if e.group else f).attrs[e.name])
+        elif e.kind == "attrdict":
+            fields[e.field] = read_attr_dict(f[e.path])
+        elif e.kind == "text":
+            text = str(_read(f, e.path))
+            fields[e.field] = json.loads(text) if e.dtype == "json" else text
+        else:
+            value = _read(f, e.path)
+            fields[e.field] = value.astype(bool) if e.dtype == "bool" else value
+    heat = read_heat(f, values)
+    return KernelData(points=points, flags=flags, fits=fits, extra=extra, heat=heat, **fields)
+
+
+def _attr_value(e: _schema.Entry, value: Any) -> Any:
+    """An attribute of the row ``e`` as the KernelData field's Python type."""
+    value = _py(value)
+    if e.dtype == "float64":
+        return float(value)
+    if e.dtype == "int64":
+        return int(value)
+    return value
+
+
+def missing_rows(f: h5py.File) -> list[str]:
+    """The required rows of the schema (gcmc.kernel.schema) absent from an open file."""
+    out = []
+    branches = (
+        _py(f["points"].attrs["branches"])
+        if "points" in f and "branches" in f["points"].attrs
+        else []
     )
+    for e in _schema.SCHEMA:
+        if not e.required:
+            continue
+        for path in [e.at(b) for b in branches] if "<branch>" in e.group else [e.path]:
+            group, _, name = path.rpartition("@") if e.is_attr else path.rpartition("/")
+            if e.is_attr:
+                obj = f.get(group) if group else f
+                ok = obj is not None and name in obj.attrs
+            else:
+                ok = path in f
+            if not ok:
+                out.append("/" + path)
+    return out
 
 
 # --------------------------------------------------------------------------------------------
@@ -397,26 +416,32 @@ class Kernel:
     # ---- identity and axes ----------------------------------------------------------------
     @property
     def name(self) -> str:
+        """Kernel name."""
         return self.data.name
 
     @property
     def version(self) -> int:
+        """Kernel version."""
         return int(self.data.version)
 
     @property
     def schema_version(self) -> str:
+        """Schema version of the file (``major.minor``)."""
         return str(self.info.get("schema_version", SCHEMA_VERSION))
 
     @property
     def temperatures_K(self) -> np.ndarray:
+        """Kernel temperatures (K), a copy."""
         return np.array(self.data.temperatures_K, dtype=float)
 
     @property
     def widths_H_nm(self) -> np.ndarray:
+        """Kernel widths H, nucleus to nucleus (nm), a copy."""
         return np.array(self.data.widths_H_nm, dtype=float)
 
     @property
     def widths_w_nm(self) -> np.ndarray:
+        """Kernel widths w, as presented to inversions (nm), a copy."""
         return np.array(self.data.widths_w_nm, dtype=float)
 
     def temperature_index(self, temperature: float | int | np.integer) -> int:

@@ -1,22 +1,21 @@
 """The kernel library writer: one HDF5 file per kernel version, ``<name>.v<version>.h5``.
 
 The layout (schema 1.0) is documented in kernels/README.md; :mod:`gcmc.reader` reads it back.
+The rows written and their order come from the schema table (:mod:`gcmc.kernel.schema`).
 Files are never overwritten and never left half-written: a kernel is written to a temporary
 file in the target folder, checksummed, read back and verified, fsynced, and only then given
-its final name (a hard link, which fails if the name exists, or ``os.replace`` where the file
-system has no hard links). On any failure the temporary file is removed.
+its final name (:func:`gcmc.files.publish`: a hard link, which fails if the name exists, or
+``os.replace`` where the file system has no hard links). On any failure the temporary file is
+removed.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
-import errno
 import hashlib
 import json
-import os
 import re
 import socket
-import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -25,17 +24,13 @@ import numpy as np
 
 from gcmc import __version__
 from gcmc.errors import InputError
+from gcmc.files import atomic_path
 from gcmc.kernel import forms as _forms
+from gcmc.kernel import schema as _schema
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
-from gcmc.kernel.heat import validate_heat, write_heat
-from gcmc.kernel.reader import (
-    CHECKSUM_ATTR,
-    DICT_LAYOUT_ATTR,
-    FORMAT_NAME,
-    SCHEMA_VERSION,
-    compute_checksums,
-    open_kernel,
-)
+from gcmc.kernel.heat import HEAT_GROUP, validate_heat, write_heat
+from gcmc.kernel.reader import compute_checksums, open_kernel, simulated_ranges
+from gcmc.kernel.schema import CHECKSUM_ATTR, DICT_LAYOUT_ATTR, FORMAT_NAME, SCHEMA_VERSION
 
 #: Kernel names: used in file names, so letters, digits and ``_ . + -`` only.
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]*$")
@@ -394,14 +389,6 @@ def _text(g: h5py.Group, name: str, text: str) -> h5py.Dataset:
     return g.create_dataset(name, data=text, dtype=h5py.string_dtype())
 
 
-def _scale(
-    g: h5py.Group, name: str, value: Any, units: str, scale_name: str, description: str
-) -> h5py.Dataset:
-    ds = _dataset(g, name, value, units=units, description=description)
-    ds.make_scale(scale_name)
-    return ds
-
-
 def _write_attr_dict(g: h5py.Group, d: dict[str, Any]) -> None:
     encoded = []
     for key, value in d.items():
@@ -421,199 +408,11 @@ def _utc_now() -> str:
     return _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat()
 
 
-def _write_contents(f: h5py.File, data: KernelData) -> None:
+def _fit_arrays(data: KernelData) -> dict[str, Any]:
+    """The /fits datasets: the FitRecords packed into (T, W[, ...]) arrays, NaN-padded."""
     n_t, n_w = len(data.temperatures_K), len(data.widths_H_nm)
     pressures = np.asarray(data.pressures_Pa, dtype=float)
     n_p = pressures.shape[1]
-    prov = data.provenance
-    f.attrs["format"] = FORMAT_NAME
-    f.attrs["schema_version"] = SCHEMA_VERSION
-    f.attrs["name"] = data.name
-    f.attrs["version"] = np.int64(data.version)
-    f.attrs["created"] = str(prov.get("created") or _utc_now())
-    f.attrs["sampler"] = data.sampler
-    f.attrs["config_hash"] = kernel_config_hash(data)
-    f.attrs["code_version"] = str(prov.get("code_version") or f"gcmc {__version__}")
-    f.attrs["host"] = str(prov.get("host") or socket.gethostname())
-    f.attrs["shape_T_W_P"] = np.array([n_t, n_w, n_p], dtype=np.int64)
-
-    # ---- axes ------------------------------------------------------------------------------
-    ax = f.create_group("axes")
-    ax.attrs["description"] = "coordinates: T temperatures, W pore widths, P pressures per T"
-    s_t = _scale(
-        ax,
-        "temperature_K",
-        np.asarray(data.temperatures_K, float),
-        "K",
-        "temperature",
-        "temperature of each isotherm",
-    )
-    s_h = _scale(
-        ax,
-        "width_H_nm",
-        np.asarray(data.widths_H_nm, float),
-        "nm",
-        "width_H",
-        "H: distance between the planes of carbon nuclei of the two innermost layers",
-    )
-    s_w = _scale(
-        ax,
-        "width_w_nm",
-        np.asarray(data.widths_w_nm, float),
-        "nm",
-        "width_w",
-        f"w: the width presented to inversions ({data.width_convention})",
-    )
-    s_p = _scale(
-        ax,
-        "pressure_index",
-        np.arange(n_p, dtype=np.int64),
-        "1",
-        "pressure_index",
-        "index into the per-temperature pressure grid",
-    )
-    d_dense = np.asarray(data.dense_pressures_Pa, dtype=float)
-    s_d = _scale(
-        ax,
-        "dense_index",
-        np.arange(d_dense.shape[1], dtype=np.int64),
-        "1",
-        "dense_index",
-        "index into the per-temperature dense pressure grid",
-    )
-    tw = [[s_t], [s_h, s_w]]
-    tp = [[s_t], [s_p]]
-    twp = [[s_t], [s_h, s_w], [s_p]]
-    lab_tp = ["temperature", "pressure"]
-    lab_tw = ["temperature", "width"]
-    lab_twp = ["temperature", "width", "pressure"]
-    _dataset(
-        ax,
-        "pressure_Pa",
-        pressures,
-        "Pa",
-        tp,
-        lab_tp,
-        "bulk pressure of each simulated point (NaN: no point)",
-    )
-    _dataset(
-        ax,
-        "relative_pressure",
-        np.asarray(data.relative_pressures, float),
-        "1",
-        tp,
-        lab_tp,
-        "p/p0 (NaN when the grid is absolute or T is above Tc)",
-    )
-
-    # ---- model ------------------------------------------------------------------------------
-    mg = f.create_group("model")
-    mg.attrs["cutoff_nm"] = float(data.cutoff_nm)
-    mg.attrs["box_nm"] = float(data.box_nm)
-    mg.attrs["tail_correction"] = data.tail_correction
-    mg.attrs["width_convention"] = data.width_convention
-    mg.attrs["pore_volume_convention"] = data.pore_volume_convention
-    _write_attr_dict(mg.create_group("probe"), data.probe)
-    _write_attr_dict(mg.create_group("solid"), data.solid)
-
-    # ---- equation of state ------------------------------------------------------------------
-    eg = f.create_group("eos")
-    eg.attrs["name"] = data.eos
-    _write_attr_dict(eg.create_group("parameters"), data.eos_parameters)
-    _dataset(
-        eg,
-        "fugacity_Pa",
-        np.asarray(data.fugacities_Pa, float),
-        "Pa",
-        tp,
-        lab_tp,
-        "bulk fugacity at each pressure (the GCMC activity is f/kT)",
-    )
-    _dataset(
-        eg,
-        "bulk_density_per_nm3",
-        np.asarray(data.bulk_density_per_nm3, float),
-        "nm^-3",
-        tp,
-        lab_tp,
-        "bulk number density at each pressure",
-    )
-    _dataset(
-        eg,
-        "saturation_pressure_Pa",
-        np.asarray(data.saturation_pressures_Pa, float),
-        "Pa",
-        [[s_t]],
-        ["temperature"],
-        "p0 of the EOS (NaN above Tc)",
-    )
-
-    # ---- points -----------------------------------------------------------------------------
-    pg = f.create_group("points")
-    pg.attrs["branches"] = list(data.points)
-    for branch, fields in data.points.items():
-        bg = pg.create_group(branch)
-        bg.attrs["field_order"] = list(fields) if fields else np.array([], dtype="S1")
-        for fname, arr in fields.items():
-            units = POINT_FIELDS[fname]
-            value = np.asarray(arr).astype(bool) if units == "bool" else np.asarray(arr, float)
-            _dataset(bg, fname, value, units, twp, lab_twp)
-        _dataset(
-            bg,
-            "flags",
-            np.asarray(data.flags[branch]),
-            "",
-            twp,
-            lab_twp,
-            "diagnostic flags of each point ('' when clean)",
-        )
-
-    # ---- limits -----------------------------------------------------------------------------
-    lg = f.create_group("limits")
-    henry = np.asarray(data.henry_per_nm3_per_pa, float)
-    acc = np.asarray(data.accessible).astype(bool)
-    _dataset(
-        lg,
-        "henry_constant_per_nm3_per_Pa",
-        henry,
-        "nm^-3 Pa^-1",
-        tw,
-        lab_tw,
-        "exact Henry constant: lim p->0 of density/p",
-    )
-    _dataset(lg, "accessible", acc, "bool", tw, lab_tw, "the pore admits the probe")
-    hs = np.asarray(data.widths_H_nm, float)
-    ws = np.asarray(data.widths_w_nm, float)
-    first = [np.flatnonzero(acc[t]) for t in range(n_t)]
-    _dataset(
-        lg,
-        "smallest_accessible_width_H_nm",
-        np.array([hs[i[0]] if i.size else np.nan for i in first]),
-        "nm",
-        [[s_t]],
-        ["temperature"],
-        "smallest accessible kernel width H (NaN: none)",
-    )
-    _dataset(
-        lg,
-        "smallest_accessible_width_w_nm",
-        np.array([ws[i[0]] if i.size else np.nan for i in first]),
-        "nm",
-        [[s_t]],
-        ["temperature"],
-        "smallest accessible kernel width w (NaN: none)",
-    )
-
-    # ---- fits -------------------------------------------------------------------------------
-    fg = f.create_group("fits")
-    fg.attrs["branch"] = "adsorption"
-    fg.attrs["above_range"] = data.above_range
-    fg.attrs["below_range"] = "henry"
-    fg.attrs["width_interpolation"] = "linear"
-    used = sorted({r.form for row in data.fits for r in row})
-    fg.attrs["parameter_names"] = json.dumps(
-        {name: list(_forms.FORMS[name].parameter_names) for name in used if name in _forms.FORMS}
-    )
     k_max = max([np.asarray(r.parameters).size for row in data.fits for r in row] + [0])
     forms = np.empty((n_t, n_w), dtype=object)
     n_par = np.zeros((n_t, n_w), dtype=np.int32)
@@ -643,133 +442,160 @@ def _write_contents(f: h5py.File, data: KernelData) -> None:
                 scal[key][t, w] = float(getattr(rec, key))
             dof[t, w] = int(rec.dof)
             accepted[t, w] = bool(rec.accepted)
-    from gcmc.kernel.reader import simulated_ranges  # the range the reader's policies use
+    ranges = simulated_ranges(data)  # the range the reader's policies use
+    used = sorted({r.form for row in data.fits for r in row})
+    names = {n: list(_forms.FORMS[n].parameter_names) for n in used if n in _forms.FORMS}
+    return {
+        "fits@parameter_names": json.dumps(names),
+        "fits/form": forms,
+        "fits/n_parameters": n_par,
+        "fits/parameters": params,
+        "fits/covariance": cov,
+        **{f"fits/{k}": v for k, v in scal.items()},
+        "fits/dof": dof,
+        "fits/n_residuals": n_res,
+        "fits/residuals": residuals,
+        "fits/accepted": accepted,
+        "fits/p_low_Pa": ranges[..., 0],
+        "fits/p_high_Pa": ranges[..., 1],
+    }
 
-    ranges = simulated_ranges(data)
-    twk = [[s_t], [s_h, s_w], []]
-    _dataset(fg, "form", forms, "", tw, lab_tw, "correlating form name (gcmc.kernel.forms)")
-    _dataset(fg, "n_parameters", n_par, "1", tw, lab_tw, "parameters used (rest NaN)")
-    _dataset(
-        fg,
-        "parameters",
-        params,
-        "form units",
-        twk,
-        lab_tw + ["parameter"],
-        "fitted parameters, NaN-padded to the longest form",
-    )
-    _dataset(
-        fg,
-        "covariance",
-        cov,
-        "form units^2",
-        [[s_t], [s_h, s_w], [], []],
-        lab_tw + ["parameter", "parameter"],
-        "parameter covariance, NaN-padded",
-    )
-    _dataset(fg, "chi2", scal["chi2"], "1", tw, lab_tw)
-    _dataset(fg, "dof", dof, "1", tw, lab_tw, "degrees of freedom")
-    _dataset(fg, "reduced_chi2", scal["reduced_chi2"], "1", tw, lab_tw)
-    _dataset(fg, "p_value", scal["p_value"], "1", tw, lab_tw, "chi-square survival")
-    _dataset(fg, "aicc", scal["aicc"], "1", tw, lab_tw, "corrected Akaike criterion")
-    _dataset(
-        fg,
-        "n_residuals",
-        n_res,
-        "1",
-        tw,
-        lab_tw,
-        "length of the fit's residual vector (P: one per pressure; else one per point)",
-    )
-    _dataset(
-        fg,
-        "residuals",
-        residuals,
-        "1",
-        twp,
-        lab_twp,
-        "(simulated - fitted)/stderr at each pressure",
-    )
-    _dataset(fg, "accepted", accepted, "bool", tw, lab_tw, "passed the goodness-of-fit test")
-    _dataset(
-        fg,
-        "p_low_Pa",
-        ranges[..., 0],
-        "Pa",
-        tw,
-        lab_tw,
-        "lowest simulated pressure of the pore: the Henry extension applies below",
-    )
-    _dataset(
-        fg,
-        "p_high_Pa",
-        ranges[..., 1],
-        "Pa",
-        tw,
-        lab_tw,
-        "highest simulated pressure of the pore: above_range applies above",
-    )
 
-    # ---- dense table ------------------------------------------------------------------------
-    dg = f.create_group("dense")
-    _dataset(dg, "pressure_Pa", d_dense, "Pa", [[s_t], [s_d]], ["temperature", "dense"])
-    _dataset(
-        dg,
-        "density_per_nm3",
-        np.asarray(data.dense_density_per_nm3, float),
-        "nm^-3",
-        [[s_t], [s_h, s_w], [s_d]],
-        ["temperature", "width", "dense"],
-        "absolute density evaluated from the fits",
-    )
+def _field_value(e: _schema.Entry, value: Any) -> Any:
+    """A KernelData field as stored in the row ``e``."""
+    if e.kind == "attr":
+        if e.dtype == "float64":
+            return float(value)
+        if e.dtype == "int64":
+            return np.int64(value)
+        return value
+    if e.dtype == "bool":
+        return np.asarray(value).astype(bool)
+    if e.dtype == "float64":
+        return np.asarray(value, float)
+    return value
 
-    # ---- provenance -------------------------------------------------------------------------
-    vg = f.create_group("provenance")
-    _text(vg, "config_text", data.config_text)
-    _text(vg, "provenance_json", json.dumps(data.provenance, default=_json_default))
+
+def _row_values(data: KernelData) -> dict[str, Any]:
+    """The value of every row of the schema (by path) that is not per branch or per extra
+    dataset: the KernelData fields converted to their stored type, and the derived rows."""
+    n_t, n_w = len(data.temperatures_K), len(data.widths_H_nm)
+    n_p = np.asarray(data.pressures_Pa).shape[1]
+    n_d = np.asarray(data.dense_pressures_Pa).shape[1]
+    prov = data.provenance
+    acc = np.asarray(data.accessible).astype(bool)
+    first = [np.flatnonzero(acc[t]) for t in range(n_t)]
+    hs = np.asarray(data.widths_H_nm, float)
+    ws = np.asarray(data.widths_w_nm, float)
     seeds = np.asarray(data.task_seeds)
-    seeds = seeds.astype(np.uint64) if seeds.dtype.kind == "i" else seeds
-    _dataset(
-        vg,
-        "task_seeds",
-        seeds,
-        "1",
-        tw + [[]] * (seeds.ndim - 2),
-        None,
-        "entropy words of each task's random stream (numpy SeedSequence)",
+    values: dict[str, Any] = {
+        e.path: _field_value(e, getattr(data, e.field))
+        for e in _schema.SCHEMA
+        if e.field is not None
+    }
+    values.update(
+        {
+            "@format": FORMAT_NAME,
+            "@schema_version": SCHEMA_VERSION,
+            "@created": str(prov.get("created") or _utc_now()),
+            "@config_hash": kernel_config_hash(data),
+            "@code_version": str(prov.get("code_version") or f"gcmc {__version__}"),
+            "@host": str(prov.get("host") or socket.gethostname()),
+            "@shape_T_W_P": np.array([n_t, n_w, n_p], dtype=np.int64),
+            "axes@description": _schema.entry("axes@description").meaning,
+            "axes/pressure_index": np.arange(n_p, dtype=np.int64),
+            "axes/dense_index": np.arange(n_d, dtype=np.int64),
+            "points@branches": list(data.points),
+            "limits/smallest_accessible_width_H_nm": np.array(
+                [hs[i[0]] if i.size else np.nan for i in first]
+            ),
+            "limits/smallest_accessible_width_w_nm": np.array(
+                [ws[i[0]] if i.size else np.nan for i in first]
+            ),
+            "fits@branch": "adsorption",
+            "fits@below_range": "henry",
+            "fits@width_interpolation": "linear",
+            "provenance/provenance_json": json.dumps(data.provenance, default=_json_default),
+            "provenance/task_seeds": seeds.astype(np.uint64) if seeds.dtype.kind == "i" else seeds,
+            "extra@order": json.dumps(list(data.extra)),
+        }
     )
-    _dataset(
-        vg,
-        "task_seconds",
-        np.asarray(data.task_seconds, float),
-        "s",
-        tw,
-        lab_tw,
-        "wall-clock cost of each task",
-    )
-
-    # ---- extra ------------------------------------------------------------------------------
-    xg = f.create_group("extra")
-    xg.attrs["order"] = json.dumps(list(data.extra))
-    for key, value in data.extra.items():
-        _dataset(xg, key, np.asarray(value))
-
-    # ---- isosteric-heat kernel (gcmc.kernel.heat) -------------------------------------------
-    if data.heat is not None:
-        write_heat(f, data.heat)
+    values.update(_fit_arrays(data))
+    return values
 
 
-def _fsync_dir(folder: Path) -> None:
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
+def _write_row(
+    g: h5py.Group,
+    e: _schema.Entry,
+    value: Any,
+    scales: dict[str, h5py.Dataset],
+    data: KernelData,
+    units: str | None = None,
+) -> None:
+    """Write one row of the schema into its group ``g``."""
+    if e.kind == "attr":
+        g.attrs[e.name] = value
+    elif e.kind == "attrdict":
+        _write_attr_dict(g.create_group(e.name), value)
+    elif e.kind == "text":
+        _text(g, e.name, value)
+    else:
+        description = None
+        if e.writes_description:
+            description = e.meaning.replace("<width_convention>", data.width_convention)
+        dims = labels = None
+        if e.dims is not None:
+            letters = e.dims.rstrip("*")
+            dims = [[scales[s] for s in _schema.DIMENSIONS[c][0]] for c in letters]
+            if e.dims.endswith("*"):
+                dims += [[]] * (np.ndim(value) - len(letters))
+            else:
+                labels = [_schema.DIMENSIONS[c][1] for c in letters]
+        ds = _dataset(
+            g, e.name, value, e.unit if units is None else units, dims, labels, description
+        )
+        if e.kind == "scale":
+            ds.make_scale(e.scale)
+            scales[e.path] = ds
+
+
+def _write_branch(
+    bg: h5py.Group, data: KernelData, branch: str, scales: dict[str, h5py.Dataset]
+) -> None:
+    """One /points/<branch> group: its field order, the fields present, the flags."""
+    fields = data.points[branch]
+    bg.attrs["field_order"] = list(fields) if fields else np.array([], dtype="S1")
+    for fname, arr in fields.items():
+        e = _schema.entry(f"{_BRANCH}/{fname}")
+        value = np.asarray(arr).astype(bool) if e.dtype == "bool" else np.asarray(arr, float)
+        _write_row(bg, e, value, scales, data)
+    flags = _schema.entry(f"{_BRANCH}/flags")
+    _write_row(bg, flags, np.asarray(data.flags[branch]), scales, data)
+
+
+_BRANCH = "points/<branch>"
+
+
+def _write_contents(f: h5py.File, data: KernelData) -> None:
+    """Write the rows of :data:`gcmc.kernel.schema.SCHEMA`, in order."""
+    values = _row_values(data)
+    scales: dict[str, h5py.Dataset] = {}
+    for e in _schema.SCHEMA:
+        if e.group == _BRANCH:
+            if e.name == "field_order":  # the first row of a branch: write them all
+                for branch in data.points:
+                    _write_branch(f.require_group(f"points/{branch}"), data, branch, scales)
+            continue
+        if e.group == HEAT_GROUP:  # optional: gcmc.kernel.heat writes the group's rows
+            if e.name == "form" and data.heat is not None:
+                write_heat(f, data.heat)
+            continue
+        g = f.require_group(e.group) if e.group else f
+        if e.group == "extra" and e.name == "<name>":
+            for key, value in data.extra.items():
+                _dataset(g, key, np.asarray(value))
+            continue
+        _write_row(g, e, values[e.path], scales, data)
 
 
 def write_kernel(data: KernelData, folder: str | Path) -> Path:
@@ -777,7 +603,8 @@ def write_kernel(data: KernelData, folder: str | Path) -> Path:
 
     Refuses (InputError) to overwrite an existing file and to write a KernelData that fails
     :func:`validate`. The file is complete and verified (read back by gcmc.reader) before it
-    gets its name; on failure nothing is left behind.
+    gets its name (:func:`gcmc.files.atomic_path`, never overwriting); on failure nothing is
+    left behind.
     """
     validate(data)
     folder = Path(folder)
@@ -788,44 +615,22 @@ def write_kernel(data: KernelData, folder: str | Path) -> Path:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InputError(f"{folder}: cannot create the kernel folder ({exc})") from None
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".tmp", dir=folder)
-    os.close(fd)
-    tmp = Path(tmp_name)
     try:
-        with h5py.File(tmp, "w", libver=LIBVER) as f:
-            _write_contents(f, data)
-            f.flush()
-            digest, group_digests = compute_checksums(f)
-            for group, value in group_digests.items():
-                f[group].attrs[CHECKSUM_ATTR] = value
-            f.attrs[CHECKSUM_ATTR] = digest
-        open_kernel(tmp)  # verify what is on disk before publishing it
-        with open(tmp, "rb+") as fh:
-            os.fsync(fh.fileno())
-        try:
-            os.link(tmp, final)  # atomic, and fails if the name exists
-        except FileExistsError:
-            raise InputError(f"{final}: exists; kernel files are never overwritten") from None
-        except OSError as exc:
-            if exc.errno not in (
-                errno.EPERM,
-                errno.ENOTSUP,
-                errno.EOPNOTSUPP,
-                errno.EXDEV,
-                errno.EMLINK,
-                errno.ENOSYS,
-            ):
-                raise
-            if final.exists():
-                raise InputError(f"{final}: exists; kernel files are never overwritten") from None
-            os.replace(tmp, final)
-        _fsync_dir(folder)
+        with atomic_path(final, overwrite=False) as tmp:
+            with h5py.File(tmp, "w", libver=LIBVER) as f:
+                _write_contents(f, data)
+                f.flush()
+                digest, group_digests = compute_checksums(f)
+                for group, value in group_digests.items():
+                    f[group].attrs[CHECKSUM_ATTR] = value
+                f.attrs[CHECKSUM_ATTR] = digest
+            open_kernel(tmp)  # verify what is on disk before publishing it
+    except FileExistsError:
+        raise InputError(f"{final}: exists; kernel files are never overwritten") from None
     except InputError:
         raise
     except OSError as exc:
         raise InputError(f"{final}: cannot write the kernel file ({exc})") from None
-    finally:
-        tmp.unlink(missing_ok=True)
     return final
 
 

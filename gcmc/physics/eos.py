@@ -252,15 +252,18 @@ class IdealGas(EquationOfState):
         )
 
     def state_from_fugacity(self, temperature_K: float, fugacity_Pa: float) -> BulkState:
+        """The bulk state at a temperature (K) and fugacity (Pa)."""
         t = _positive("temperature_K", temperature_K)
         f = _positive("fugacity_Pa", fugacity_Pa)
         return self._state(t, f)
 
     def saturation_pressure(self, temperature_K: float) -> float:
+        """Saturation pressure p0 (Pa) at a temperature (K); NaN above the critical point."""
         _positive("temperature_K", temperature_K)
         raise InputError("eos: the ideal gas has no saturation pressure; name a real-gas EOS")
 
     def parameters(self) -> dict[str, Any]:
+        """The equation of state's parameters, as stored in a kernel's ``/eos/parameters``."""
         return {"eos": self.name, "description": "ideal gas: f = p, rho = p/(kT)"}
 
 
@@ -469,6 +472,7 @@ class PengRobinson(EquationOfState):
         return math.exp(ln_p)
 
     def parameters(self) -> dict[str, Any]:
+        """The equation of state's parameters, as stored in a kernel's ``/eos/parameters``."""
         return {
             "eos": self.name,
             "reference": "Peng & Robinson, Ind. Eng. Chem. Fundam. 15 (1976) 59",
@@ -594,6 +598,7 @@ class ReferenceEOS(EquationOfState):
             raise self._fail("temperature_K", t, None, exc) from None
 
     def parameters(self) -> dict[str, Any]:
+        """The equation of state's parameters, as stored in a kernel's ``/eos/parameters``."""
         import CoolProp
         import CoolProp.CoolProp as CP
 
@@ -818,6 +823,7 @@ class LennardJonesEOS(EquationOfState):
         )
 
     def parameters(self) -> dict[str, Any]:
+        """The equation of state's parameters, as stored in a kernel's ``/eos/parameters``."""
         import teqp
 
         return {

@@ -41,6 +41,9 @@ def _wall(z: np.ndarray, model: PoreModel) -> np.ndarray:
 
 @dataclass(frozen=True)
 class PoreLimit:
+    """The exact low-pressure limit of one pore at one temperature: the Boltzmann integral of
+    the wall potential, the Henry constant and whether the pore admits the probe."""
+
     width_nm: float
     temperature_K: float
     boltzmann_integral_nm: float  # int_0^H exp(-beta V(z)) dz

@@ -40,6 +40,7 @@ class Probe:
     sources: dict[str, str] = field(default_factory=dict, compare=False)
 
     def to_dict(self) -> dict[str, Any]:
+        """The probe as a plain dict (as stored in a kernel's ``/model/probe``)."""
         return asdict(self)
 
 
@@ -55,6 +56,7 @@ class Solid:
     epsilon_sf_scale: float = 1.0
 
     def to_dict(self) -> dict[str, Any]:
+        """The solid as a plain dict (as stored in a kernel's ``/model/solid``)."""
         return asdict(self)
 
 
@@ -162,6 +164,8 @@ def load_probe_library(path: Path | None = None) -> dict[str, Probe]:
 
 
 def get_probe(name: str, library: Path | None = None) -> Probe:
+    """A probe by name from the packaged library or from a user's TOML file; InputError if
+    unknown."""
     lib = load_probe_library(library)
     key = name.strip().lower().replace("-", "_").replace(" ", "_")
     if key not in lib:
@@ -170,6 +174,7 @@ def get_probe(name: str, library: Path | None = None) -> Probe:
 
 
 def load_solid_library(path: Path | None = None) -> dict[str, Solid]:
+    """The solids of the packaged library (or of a user's TOML file), by name."""
     path = Path(path) if path is not None else _library_file("solids.toml")
     data = _read_toml(path)
     return {
@@ -196,6 +201,7 @@ def solid_from_table(
 
 
 def default_solid() -> Solid:
+    """The default solid: graphite."""
     return load_solid_library()["graphite"]
 
 
@@ -225,10 +231,12 @@ class PoreModel:
 
     @property
     def solid_fluid(self) -> SolidFluid:
+        """The solid-fluid interaction parameters (Lorentz-Berthelot unless overridden)."""
         return solid_fluid_parameters(self.probe, self.solid)
 
     @property
     def box_lengths_nm(self) -> tuple[float, float, float]:
+        """Periodic box edges (x, y, z) in nm; z is the pore width in a slit."""
         if self.geometry == BULK:
             return (self.box_nm, self.box_nm, self.box_nm)
         return (self.box_nm, self.box_nm, self.width_nm)
@@ -252,6 +260,8 @@ class PoreModel:
         return self.box_nm * self.box_nm * max(self.internal_width_nm, 0.0)
 
     def describe(self, slab_tail: bool = True) -> dict[str, Any]:
+        """The model as a plain dict (probe, solid, solid-fluid parameters, geometry, ...) for
+        provenance."""
         sf = self.solid_fluid
         return {
             "probe": self.probe.name,

@@ -92,6 +92,7 @@ def slit_wall_energy(z, width_nm, prefactor_k, sigma_sf_nm, delta_nm):
 
 
 def steele_prefactor_k(model: PoreModel) -> float:
+    """Prefactor of the Steele 10-4-3 potential, 2 pi rho_s eps_sf sigma_sf^2 Delta, in K."""
     sf = model.solid_fluid
     s = model.solid
     return 2.0 * math.pi * s.density_nm3 * sf.epsilon_k * sf.sigma_nm**2 * s.interlayer_nm
@@ -118,6 +119,7 @@ DEFAULT_CUTOFF_SIGMA = 3.0
 
 
 def default_cutoff_nm(probe: Probe) -> float:
+    """The fluid-fluid cutoff radius for a probe (nm): 3 sigma."""
     return DEFAULT_CUTOFF_SIGMA * probe.sigma_nm
 
 

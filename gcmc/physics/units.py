@@ -34,8 +34,10 @@ def fugacity_pa_from_activity(activity_nm3: float, temperature_k: float) -> floa
 
 
 def per_nm3_to_mmol_per_cm3(density_nm3: float) -> float:
+    """Number density in molecules/nm^3 to mmol/cm^3."""
     return density_nm3 * MMOL_PER_CM3_PER_NM3
 
 
 def mol_per_m3_to_per_nm3(density_mol_m3: float) -> float:
+    """Molar density in mol/m^3 to molecules/nm^3."""
     return density_mol_m3 * AVOGADRO_PER_MOL / NM3_PER_M3

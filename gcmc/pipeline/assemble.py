@@ -17,6 +17,8 @@ from gcmc.pipeline.tasks import BRANCHES, BuildPlan, Task, load_task, task_path
 
 @dataclass
 class FitSummary:
+    """The chosen fit of one isotherm, for the build's summary."""
+
     t_index: int
     w_index: int
     form: str
@@ -30,7 +32,7 @@ def _library_versions() -> dict[str, str]:
         try:
             m = __import__(mod)
             out[mod] = str(getattr(m, "__version__", "unknown"))
-        except Exception:  # noqa: BLE001
+        except Exception:
             out[mod] = "not installed"
     return out
 
@@ -120,20 +122,7 @@ def assemble_kernel(
             n = points["adsorption"]["density_per_nm3"][ti, wi]
             e = points["adsorption"]["density_per_nm3_stderr"][ti, wi]
             res = fit_isotherm(p, n, e, forms=cfg.fit.forms, p_value_min=cfg.fit.p_value_min)
-            row.append(
-                FitRecord(
-                    form=res.form,
-                    parameters=np.asarray(res.parameters, float),
-                    covariance=np.asarray(res.covariance, float),
-                    chi2=res.chi2,
-                    dof=res.dof,
-                    reduced_chi2=res.reduced_chi2,
-                    p_value=res.p_value,
-                    aicc=res.aicc,
-                    residuals=np.asarray(res.residuals, float),
-                    accepted=res.accepted,
-                )
-            )
+            row.append(res.record())
             summaries.append(FitSummary(ti, wi, res.form, res.reduced_chi2, res.accepted))
             kh = henry[ti, wi] if res.form != "zero" else 0.0
             dense_n[ti, wi] = evaluate_fit(

@@ -104,7 +104,7 @@ def build_kernel(
     workers: int = 0,
     progress: bool = False,
     plan_only: bool = False,
-    on_plan=None,  # noqa: ANN001
+    on_plan=None,
 ) -> BuildResult:
     """Build the kernel of a run config; resume from the tasks already on disk.
 
@@ -179,7 +179,7 @@ def build_kernel(
     return result
 
 
-def _run_plan(result: BuildResult, pool, rank: int, size: int, progress: bool) -> None:  # noqa: ANN001
+def _run_plan(result: BuildResult, pool, rank: int, size: int, progress: bool) -> None:
     """Run the plan's pending tasks, then (rank 0) assemble and write the kernel."""
     from gcmc.kernel.writer import write_kernel
     from gcmc.pipeline.assemble import assemble_kernel

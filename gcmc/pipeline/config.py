@@ -48,6 +48,8 @@ KNOWN_SECTIONS = {
 
 @dataclass(frozen=True)
 class PressureGrid:
+    """The pressure grid of a build: absolute (Pa) or relative (p/p0) values."""
+
     kind: str  # "absolute" (values in Pa) or "relative" (values are p/p0)
     values: tuple[float, ...]
     descending: bool  # also run the desorption branch
@@ -55,6 +57,9 @@ class PressureGrid:
 
 @dataclass(frozen=True)
 class FitOptions:
+    """How isotherms are fitted: the forms tried, the acceptance threshold, the policy above
+    the simulated range and the size of the dense table."""
+
     forms: tuple[str, ...] = FIT_DEFAULT_FORMS
     p_value_min: float = 1e-3
     above_range: str = "clamp"
@@ -63,6 +68,8 @@ class FitOptions:
 
 @dataclass(frozen=True)
 class RunConfig:
+    """A validated build configuration (from a TOML file; see :func:`parse_config`)."""
+
     path: Path
     text: str
     name: str
@@ -286,6 +293,7 @@ def load_config(path: str | Path) -> RunConfig:
 
 
 def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
+    """Validate a parsed TOML config into a RunConfig; InputError naming the first bad field."""
     p = path.name
     for key in data:
         if key not in KNOWN_SECTIONS:

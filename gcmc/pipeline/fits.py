@@ -51,6 +51,7 @@ from scipy import optimize, stats
 
 from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
+from gcmc.kernel.data import FitRecord
 
 # the standard-error rule lives beside the forms (the quality checks use it too)
 from gcmc.kernel.forms import (  # noqa: E402, F401 - re-exported: fits.effective_stderr
@@ -73,8 +74,9 @@ _RANK_RTOL = 1e-9  # singular-value ratio below which J is treated as rank defic
 
 
 @dataclass(frozen=True)
-class FitResult:
-    """The outcome of fitting one isotherm.
+class FitResult(FitRecord):
+    """The outcome of fitting one isotherm: the stored :class:`gcmc.kernel.data.FitRecord`
+    fields, plus what only the fit knows.
 
     ``parameters`` are in the natural units of the form's ``parameter_names``; for
     ``monotone_interpolant`` they are [ln p_1..K, n_1..K, slopes_1..K]
@@ -84,28 +86,12 @@ class FitResult:
     (name, reduced_chi2, aicc, accepted) per form tried. ``p_range`` is the simulated range
     (p_min, p_max) that :func:`evaluate` uses for its policies. ``at_bound`` names the
     parameters that ended on a bound of the optimiser (for those the covariance ignores
-    the constraint).
+    the constraint). :meth:`record` gives the stored part.
     """
 
-    form: str
-    parameters: np.ndarray
-    covariance: np.ndarray
-    chi2: float
-    dof: int
-    reduced_chi2: float
-    p_value: float
-    aicc: float
-    residuals: np.ndarray
-    accepted: bool
-    candidates: tuple[tuple[str, float, float, bool], ...]
-    p_range: tuple[float, float]
+    candidates: tuple[tuple[str, float, float, bool], ...] = ()
+    p_range: tuple[float, float] = (float("nan"), float("nan"))
     at_bound: tuple[str, ...] = field(default=())
-
-    @property
-    def stderr(self) -> np.ndarray:
-        """Standard errors of the parameters: sqrt of the covariance diagonal."""
-        with np.errstate(invalid="ignore"):
-            return np.sqrt(np.diag(self.covariance))
 
 
 # --------------------------------------------------------------------------------------------

@@ -62,6 +62,7 @@ class BuildLock:
         self.held = False
 
     def acquire(self) -> None:
+        """Take the build lock, or raise InputError naming the live owner."""
         self.path.parent.mkdir(parents=True, exist_ok=True)
         me = f"{socket.gethostname()} {os.getpid()}{_slurm_run()}\n"
         for _ in range(2):
@@ -110,6 +111,7 @@ class BuildLock:
         return False
 
     def release(self) -> None:
+        """Give the build lock back (remove the lock file)."""
         if self.held:
             self.path.unlink(missing_ok=True)
             self.held = False
@@ -125,12 +127,15 @@ def _slurm_run() -> str:
 
 
 class BuildLog:
+    """The build's log file: one time-stamped line per event, thread-safe."""
+
     def __init__(self, path: Path):
         path.parent.mkdir(parents=True, exist_ok=True)
         self.path = path
         self._lock = threading.Lock()
 
     def write(self, line: str) -> None:
+        """Append one time-stamped line."""
         stamp = time.strftime("%Y-%m-%d %H:%M:%S")
         with self._lock, open(self.path, "a") as fh:
             fh.write(f"{stamp} {line}\n")
@@ -138,6 +143,8 @@ class BuildLog:
 
 @dataclass
 class RunReport:
+    """What a run of tasks did: task keys done and failed, tasks reused, seconds."""
+
     done: list[str] = field(default_factory=list)
     failed: list[str] = field(default_factory=list)
     skipped: int = 0
@@ -148,7 +155,7 @@ def _points_per_task(plan: BuildPlan) -> int:
     return len(plan.config.pressures.values) * (2 if plan.config.pressures.descending else 1)
 
 
-def start_local_pool(workers: int):  # noqa: ANN201
+def start_local_pool(workers: int):
     """A process pool of ``workers`` spawned workers, started now: each imports the package
     and loads the compiled engine while the parent goes on (the EOS states of the plan take
     it about as long), instead of after the plan is ready."""
@@ -165,7 +172,7 @@ def start_local_pool(workers: int):  # noqa: ANN201
     return pool
 
 
-def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None) -> RunReport:  # noqa: ANN001
+def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None) -> RunReport:
     """Run the pending tasks in this process (workers == 1) or a process pool (``pool``, or
     one started here)."""
     report = RunReport()
@@ -209,7 +216,7 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None
     return report
 
 
-def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: ANN001
+def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:
     """All ranks take tasks from a shared atomic counter; rank 0 shows progress by watching
     the task files appear (every finished task is on disk before it is counted)."""
     from mpi4py import MPI
@@ -284,10 +291,12 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:  # noqa: AN
 
 
 def load_plan(config_path: str | Path) -> BuildPlan:
+    """Read a config file and plan its build (EOS states, tasks, seeds)."""
     return make_plan(load_config(config_path))
 
 
-def progress_bar(total: int, initial: int, enabled: bool):  # noqa: ANN201
+def progress_bar(total: int, initial: int, enabled: bool):
+    """A tqdm progress bar over the build's points, on stderr (disabled unless ``enabled``)."""
     from tqdm import tqdm
 
     return tqdm(

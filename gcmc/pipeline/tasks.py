@@ -21,8 +21,10 @@ from pathlib import Path
 import numpy as np
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_write, atomic_write_text
 from gcmc.kernel.data import POINT_FIELDS
 from gcmc.physics.model import SLIT, PoreModel
+from gcmc.pipeline import faults
 from gcmc.pipeline.config import RunConfig
 
 BRANCHES = ("adsorption", "desorption")
@@ -30,6 +32,8 @@ BRANCHES = ("adsorption", "desorption")
 
 @dataclass(frozen=True)
 class TemperaturePlan:
+    """The bulk states of one temperature's pressure grid, from the equation of state."""
+
     temperature_K: float
     saturation_pressure_Pa: float
     pressures_Pa: np.ndarray
@@ -103,6 +107,8 @@ def added_width_task(t_index: int, width_H_nm: float, cost: float = 0.0) -> Task
 
 @dataclass(frozen=True)
 class BuildPlan:
+    """A planned build: the config, the bulk states per temperature and the tasks."""
+
     config: RunConfig
     temperatures: list[TemperaturePlan]
     tasks: list[Task]  # most expensive first
@@ -111,6 +117,7 @@ class BuildPlan:
 
     @property
     def n_points(self) -> int:
+        """Points the build simulates (both branches counted)."""
         per = len(self.config.pressures.values) * (2 if self.config.pressures.descending else 1)
         return per * len(self.tasks)
 
@@ -193,10 +200,12 @@ def pore_model(cfg: RunConfig, w_index: int, width_H_nm: float | None = None) ->
 
 
 def task_path(plan: BuildPlan, task: Task) -> Path:
+    """The task's result file (.npz)."""
     return plan.task_dir / f"{task.key}.npz"
 
 
 def failure_path(plan: BuildPlan, task: Task) -> Path:
+    """The task's failure record (.json)."""
     return plan.task_dir / f"{task.key}.failed.json"
 
 
@@ -208,11 +217,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     from gcmc.physics.henry import pore_limit
     from gcmc.sampling.point import ThermoState, simulate_point
 
-    # Test hook (used by tests/test_build_resume.py): GCMC_FAIL_TASK=t000_w002[,...] makes
-    # these tasks fail, to exercise failure reporting and retry on rerun. Unset in real builds.
-    fail_keys = os.environ.get("GCMC_FAIL_TASK", "")
-    if task.key in fail_keys.split(","):
-        raise RuntimeError(f"failed on purpose (test hook GCMC_FAIL_TASK={fail_keys})")
+    faults.check_task(task.key)  # the test seam (gcmc.pipeline.faults); nothing in real builds
     if task.is_rerun:
         from gcmc.pipeline.escalation import run_point_task
 
@@ -337,16 +342,8 @@ def _atomic_savez(path: Path, arrays: dict[str, np.ndarray]) -> None:
     arrays = dict(arrays)
     arrays[CHECKSUM_KEY] = _checksum(arrays)
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    with atomic_write(path, "wb") as fh:
+        np.savez(fh, **arrays)
 
 
 def load_task(path: Path) -> tuple[dict[str, np.ndarray], dict]:
@@ -397,7 +394,7 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
     try:
         run_task(plan, task)
         return "done", time.perf_counter() - t0, ""
-    except Exception as exc:  # noqa: BLE001 - a failed task must not take the others down
+    except Exception as exc:  # a failed task must not take the others down
         tp = plan.temperatures[task.t_index]
         msg = (
             f"task {task.key} (T = {tp.temperature_K:g} K, H = "
@@ -407,9 +404,7 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
         record = {"task": task.key, "error": msg, "traceback": traceback.format_exc()}
         fail = failure_path(plan, task)
         fail.parent.mkdir(parents=True, exist_ok=True)
-        tmp = fail.with_name(f".{fail.name}.{os.getpid()}.tmp")
-        tmp.write_text(json.dumps(record, indent=1))
-        os.replace(tmp, fail)
+        atomic_write_text(fail, json.dumps(record, indent=1))
         return "failed", time.perf_counter() - t0, msg
 
 
@@ -439,6 +434,7 @@ def _worker_run(plan: BuildPlan, key: str) -> tuple[str, str, float, str]:
 
 
 def pending_tasks(plan: BuildPlan) -> list[Task]:
+    """The plan's tasks without a result file, in the plan's order."""
     return [t for t in plan.tasks if not task_path(plan, t).exists()]
 
 

@@ -87,6 +87,7 @@ import numpy as np
 from scipy import stats
 
 from gcmc.errors import InputError
+from gcmc.kernel import flags as fl
 from gcmc.kernel import forms as _forms
 from gcmc.kernel.data import KernelData
 from gcmc.kernel.forms import effective_stderr
@@ -133,6 +134,9 @@ MODE_PEAK_FRACTION = 0.1
 # --------------------------------------------------------------------------------------------
 @dataclass
 class Criterion:
+    """One criterion of the check: its verdict (pass, info, warn, fail), what was measured
+    against which threshold, and the details."""
+
     key: str
     title: str
     verdict: str
@@ -170,11 +174,14 @@ class SyntheticPSD:
 
     @property
     def centres(self) -> list[float]:
+        """The modes' centres (nm), sorted."""
         return sorted(c for c, _, _ in self.modes)
 
 
 @dataclass
 class RoundTrip:
+    """A synthetic round trip: a PSD through the kernel and back by the reference inversion."""
+
     temperature_K: float
     psd: SyntheticPSD
     resolvable: bool
@@ -236,6 +243,7 @@ class CheckSettings:
     psds: tuple[SyntheticPSD, ...] | None = None  # None: default_psds() per kernel
 
     def validate(self) -> None:
+        """Raise InputError naming the first setting out of range."""
         if not (np.isfinite(self.target_rel_error) and self.target_rel_error > 0):
             raise InputError(f"--target-rel-error: must be > 0, got {self.target_rel_error}")
         if self.realisations < 2:
@@ -248,6 +256,8 @@ class CheckSettings:
 
 @dataclass
 class CheckReport:
+    """The result of checking one kernel: criteria, resolving power, round trips."""
+
     kernel_name: str
     kernel_version: int
     path: str
@@ -258,20 +268,24 @@ class CheckReport:
 
     @property
     def verdict(self) -> str:
+        """The worst verdict of the criteria."""
         worst = max((_RANK[c.verdict] for c in self.criteria), default=0)
         return {0: "pass", 1: "warn", 2: "fail"}[worst]
 
     @property
     def exit_code(self) -> int:
+        """The command's exit code: 1 on fail, else 0."""
         return 1 if self.verdict == "fail" else 0
 
     def criterion(self, key: str) -> Criterion:
+        """The criterion with this key (KeyError if none)."""
         for c in self.criteria:
             if c.key == key:
                 return c
         raise KeyError(key)
 
     def to_dict(self) -> dict[str, Any]:
+        """The report as JSON-ready dict (check.json)."""
         s = self.settings
         return _jsonable(
             {
@@ -415,6 +429,7 @@ def _lagrange(xs: np.ndarray, ys: np.ndarray, x: float) -> np.ndarray:
 # 1. point and isotherm health
 # --------------------------------------------------------------------------------------------
 def check_point_errors(kernel: Kernel, settings: CheckSettings, ts: list[int]) -> Criterion:
+    """``point_errors``: relative standard errors of the points against the target."""
     data = kernel.data
     target = settings.target_rel_error
     floor = settings.noise.absolute_mmol_cm3 / MMOL_PER_CM3_PER_NM3
@@ -468,6 +483,7 @@ def check_point_errors(kernel: Kernel, settings: CheckSettings, ts: list[int]) -
 
 
 def check_flags(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``point_flags``: points flagged at build; unconverged ones fail, other flags warn."""
     data = kernel.data
     unconverged, flagged = [], []
     for branch, pts in data.points.items():
@@ -478,7 +494,7 @@ def check_flags(kernel: Kernel, ts: list[int]) -> Criterion:
             for j in np.flatnonzero(data.accessible[t]):
                 for k in np.flatnonzero(np.isfinite(n[t, j])):
                     text = str(flags[t, j, k]) if flags is not None else ""
-                    items = [f for f in text.split("; ") if f and f != "inaccessible"]
+                    items = fl.without(text, fl.INACCESSIBLE)
                     where = f"{branch}: {_where(data, t, j, k)}"
                     if conv[t, j, k] == 0:
                         unconverged.append(f"{where}: {'; '.join(items) or 'not converged'}")
@@ -497,6 +513,7 @@ def check_flags(kernel: Kernel, ts: list[int]) -> Criterion:
 
 
 def check_monotonic(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``monotonic``: no later point below an earlier one by more than 3 combined sigma."""
     data = kernel.data
     worst = (0.0, "")
     fails = []
@@ -540,6 +557,7 @@ def check_monotonic(kernel: Kernel, ts: list[int]) -> Criterion:
 
 
 def check_fits(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``fit_quality``: chi-square p-value and runs test of the stored fit against the points."""
     data = kernel.data
     n, _, sig = _branch_arrays(data, "adsorption")
     worst_p, worst_where, worst_runs = 1.0, "", 1.0
@@ -613,6 +631,7 @@ def check_fits(kernel: Kernel, ts: list[int]) -> Criterion:
 
 
 def check_hysteresis(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``hysteresis``: desorption against adsorption, where both branches were run."""
     data = kernel.data
     if "desorption" not in data.points:
         return Criterion(
@@ -690,6 +709,7 @@ def _log_slope(rec: Any, p0: float) -> float:
 
 
 def check_henry(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``henry``: the lowest point against the exact Henry law, where it is in the Henry regime."""
     data = kernel.data
     n, _, sig = _branch_arrays(data, "adsorption")
     fails, rows, skipped = [], [], []
@@ -757,6 +777,8 @@ def check_henry(kernel: Kernel, ts: list[int]) -> Criterion:
 
 
 def check_accessibility(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``accessibility``: inaccessible widths empty and below the accessible ones, which have a
+    Henry constant."""
     data = kernel.data
     n, _, sig = _branch_arrays(data, "adsorption")
     fails, smallest = [], []
@@ -811,6 +833,7 @@ def check_accessibility(kernel: Kernel, ts: list[int]) -> Criterion:
 
 
 def check_wide_pore(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``wide_pore``: the surface excess per area of the two widest pores against each other."""
     data = kernel.data
     n, _, sig = _branch_arrays(data, "adsorption")
     lines, rows = [], []
@@ -879,6 +902,7 @@ def _neighbours(idx: np.ndarray, pos: int, below: int, above: int) -> np.ndarray
 
 
 def check_width_outliers(kernel: Kernel, ts: list[int]) -> Criterion:
+    """``width_outliers``: each point against the interpolation of its neighbouring widths."""
     data = kernel.data
     n, _, sig = _branch_arrays(data, "adsorption")
     w_all = np.asarray(data.widths_w_nm, float)
@@ -932,6 +956,7 @@ def check_width_outliers(kernel: Kernel, ts: list[int]) -> Criterion:
 
 
 def check_width_gaps(kernel: Kernel, settings: CheckSettings, ts: list[int]) -> Criterion:
+    """``width_gaps``: the error of linear interpolation in width at each interval's middle."""
     data = kernel.data
     n, _, sig = _branch_arrays(data, "adsorption")
     w_all = np.asarray(data.widths_w_nm, float)

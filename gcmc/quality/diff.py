@@ -18,6 +18,9 @@ from gcmc.quality.criteria import _branch_arrays, _jsonable, _label, _mmol, as_k
 
 @dataclass
 class DiffReport:
+    """The differences between two kernels: settings changed and, per width, the largest
+    difference of the isotherms in combined standard errors."""
+
     a: str
     b: str
     probe: str
@@ -28,10 +31,12 @@ class DiffReport:
     max_sigma: float
 
     def largest(self) -> float:
+        """The largest difference over all widths, in combined standard errors."""
         vals = [r["max_sigma"] for r in self.widths if np.isfinite(r["max_sigma"])]
         return max(vals) if vals else 0.0
 
     def to_dict(self) -> dict[str, Any]:
+        """The report as JSON-ready dict."""
         return _jsonable(
             {
                 "a": self.a,
@@ -276,6 +281,7 @@ def _diff_row(
 
 
 def format_diff(rep: DiffReport) -> str:
+    """The text printed by ``gcmc diff``."""
     out = [f"gcmc diff: A = {rep.a}", f"           B = {rep.b}", f"probe: {rep.probe}", ""]
     if rep.changes:
         out.append("changed (section / field: A -> B):")

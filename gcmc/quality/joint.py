@@ -122,6 +122,7 @@ class Member:
 
     @property
     def noise(self) -> NoiseModel:
+        """The member's experimental noise model."""
         return self.experiment.noise
 
     def accessible_widths(self) -> np.ndarray:
@@ -132,6 +133,7 @@ class Member:
 
     @property
     def smallest_accessible_w_nm(self) -> float:
+        """The member's smallest accessible kernel width (w, nm); NaN if none."""
         w = self.accessible_widths()
         return float(w[0]) if w.size else float("nan")
 
@@ -497,6 +499,7 @@ class Resolution:
         return float(sum(b - a for a, b in self.intervals_w_nm))
 
     def describe(self) -> str:
+        """The resolved width intervals in words."""
         if not self.intervals_w_nm:
             return f"no width resolved (dw_2 > {self.resolution_fraction:g} w everywhere)"
         return "resolved w = " + ", ".join(f"{a:.3g}-{b:.3g}" for a, b in self.intervals_w_nm)
@@ -802,6 +805,9 @@ class Recovery:
 
 @dataclass
 class JointRoundTrip:
+    """A synthetic round trip of the set: one PSD through the stacked kernels and back by the
+    joint inversion, beside each member's own recovery."""
+
     psd: SyntheticPSD
     resolvable: bool
     why: str
@@ -815,6 +821,7 @@ class JointRoundTrip:
 
     @property
     def verdict(self) -> str:
+        """The verdict: the joint recovery's, or info where the PSD is not resolvable."""
         return self.joint.verdict if self.resolvable else "info"
 
 
@@ -1037,6 +1044,7 @@ class SetSettings:
     member_health: bool = True
 
     def validate(self) -> None:
+        """Raise InputError naming the first setting out of range."""
         CheckSettings(
             target_rel_error=self.target_rel_error,
             realisations=self.realisations,
@@ -1090,6 +1098,8 @@ def member_health(members: list[Member], settings: SetSettings) -> Criterion:
 
 @dataclass
 class SetReport:
+    """The result of checking a set of kernels: members, criteria, joint resolution, round trips."""
+
     members: list[Member]
     settings: SetSettings
     criteria: list[Criterion]
@@ -1098,20 +1108,24 @@ class SetReport:
 
     @property
     def verdict(self) -> str:
+        """The worst verdict of the criteria."""
         worst = max((_RANK[c.verdict] for c in self.criteria), default=0)
         return {0: "pass", 1: "warn", 2: "fail"}[worst]
 
     @property
     def exit_code(self) -> int:
+        """The command's exit code: 1 on fail, else 0."""
         return 1 if self.verdict == "fail" else 0
 
     def criterion(self, key: str) -> Criterion:
+        """The criterion with this key (KeyError if none)."""
         for c in self.criteria:
             if c.key == key:
                 return c
         raise KeyError(key)
 
     def to_dict(self) -> dict[str, Any]:
+        """The report as JSON-ready dict."""
         s = self.settings
         return jsonable(
             {
@@ -1227,6 +1241,8 @@ def format_set_table(report: SetReport, details: int = 8) -> str:
 # --------------------------------------------------------------------------------------------
 @dataclass
 class PlanRow:
+    """One row of the width plan: a member ranked by the target widths it adds."""
+
     rank: int
     member: str
     added_to: list[str]
@@ -1240,12 +1256,15 @@ class PlanRow:
 
 @dataclass
 class Plan:
+    """The width plan: members ranked by the resolution they add at the target widths."""
+
     targets_w_nm: list[float]
     base: list[str]
     rows: list[PlanRow]
     resolution_fraction: float
 
     def to_dict(self) -> dict[str, Any]:
+        """The plan as JSON-ready dict."""
         return jsonable(
             {
                 "targets_w_nm": self.targets_w_nm,

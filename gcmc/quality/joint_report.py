@@ -32,7 +32,7 @@ def _colour(i: int) -> str:
     return _MEMBER_COLOURS[i % len(_MEMBER_COLOURS)]
 
 
-def plot_gain(ax_top, ax_bottom, jr: JointResolution) -> None:  # noqa: ANN001
+def plot_gain(ax_top, ax_bottom, jr: JointResolution) -> None:
     """The two panels of ``set-gain`` (module docstring)."""
     s = jr.set
     w = s.widths_w_nm
@@ -107,7 +107,7 @@ def plot_gain(ax_top, ax_bottom, jr: JointResolution) -> None:  # noqa: ANN001
     ax_bottom.set_ylabel("gain: best member $\\delta w_2$ / set $\\delta w_2$")
 
 
-def plot_joint_round_trip(ax, rt: JointRoundTrip) -> None:  # noqa: ANN001
+def plot_joint_round_trip(ax, rt: JointRoundTrip) -> None:
     """One PSD: true, joint (median and band), each member alone (median)."""
     med, lo, hi = rt.joint.band()
     ax.fill_between(rt.widths_nm, lo, hi, color=_SET_COLOUR, alpha=0.2, lw=0)
@@ -133,7 +133,7 @@ def plot_joint_round_trip(ax, rt: JointRoundTrip) -> None:  # noqa: ANN001
     ax.legend(fontsize=6, loc="upper right")
 
 
-def plot_set_singular_values(ax, jr: JointResolution) -> None:  # noqa: ANN001
+def plot_set_singular_values(ax, jr: JointResolution) -> None:
     """Singular values of the stacked matrix and of each member's."""
     for i, r in enumerate(jr.members):
         k = np.arange(1, r.singular_values.size + 1)
@@ -162,7 +162,7 @@ def plot_set_singular_values(ax, jr: JointResolution) -> None:  # noqa: ANN001
     ax.legend(fontsize=7)
 
 
-def gain_figure(report: SetReport):  # noqa: ANN201
+def gain_figure(report: SetReport):
     """The ``set-gain`` figure (a matplotlib Figure)."""
     fig = new_figure(7.2, 6.4)
     grid = fig.add_gridspec(2, 1, height_ratios=(3, 2))

@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import json
 import os
-import tempfile
 import warnings
 from pathlib import Path
 
@@ -33,6 +32,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
 from gcmc.errors import InputError
+from gcmc.files import atomic_path, atomic_write
 from gcmc.kernel.reader import Kernel
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.quality.criteria import CheckReport, RoundTrip
@@ -48,19 +48,6 @@ def _figure(width: float, height: float) -> Figure:
     return fig
 
 
-def _default_mode() -> int:
-    """0o666 less the process umask: the mode an ordinary open() would give a new file
-    (mkstemp makes its files private)."""
-    mask = os.umask(0)
-    os.umask(mask)
-    return 0o666 & ~mask
-
-
-def _publish(tmp: str, final: Path) -> None:
-    os.chmod(tmp, _default_mode())
-    os.replace(tmp, final)
-
-
 def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
     """Lay the figure out once (tight layout) and write it as PNG and PDF."""
     with warnings.catch_warnings():
@@ -69,14 +56,8 @@ def _save(fig: Figure, folder: Path, stem: str) -> list[Path]:
     out = []
     for fmt in FORMATS:
         final = folder / f"{stem}.{fmt}"
-        fd, tmp = tempfile.mkstemp(prefix=f".{stem}.", suffix=f".{fmt}.tmp", dir=folder)
-        os.close(fd)
-        try:
+        with atomic_path(final) as tmp:
             fig.savefig(tmp, format=fmt, dpi=150)
-            _publish(tmp, final)
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
         out.append(final)
     return out
 
@@ -88,7 +69,8 @@ def _t_suffix(temperature_K: float) -> str:
 # --------------------------------------------------------------------------------------------
 # panels
 # --------------------------------------------------------------------------------------------
-def plot_isotherms(ax, kernel: Kernel, t: int) -> None:  # noqa: ANN001
+def plot_isotherms(ax, kernel: Kernel, t: int) -> None:
+    """Panel: the kernel's isotherms at one temperature."""
     d = kernel.data
     temp = float(d.temperatures_K[t])
     p = np.asarray(d.pressures_Pa[t], float)
@@ -125,7 +107,7 @@ def plot_isotherms(ax, kernel: Kernel, t: int) -> None:  # noqa: ANN001
         sm.set_label("pore width w (nm)")
 
 
-def _scalar_mappable(cmap, norm):  # noqa: ANN001, ANN202
+def _scalar_mappable(cmap, norm):
     from matplotlib.cm import ScalarMappable
 
     sm = ScalarMappable(norm=norm, cmap=cmap)
@@ -133,7 +115,8 @@ def _scalar_mappable(cmap, norm):  # noqa: ANN001, ANN202
     return sm
 
 
-def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:  # noqa: ANN001
+def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:
+    """Panel: relative standard errors of the points against the target."""
     d = kernel.data
     p = np.asarray(d.pressures_Pa[t], float)
     pts = d.points["adsorption"]
@@ -177,7 +160,8 @@ def plot_relative_errors(ax, kernel: Kernel, t: int, target: float) -> None:  # 
     ax.set_title("relative standard errors of the points", fontsize=9)
 
 
-def plot_resolving_power(ax, res: ResolvingPower) -> None:  # noqa: ANN001
+def plot_resolving_power(ax, res: ResolvingPower) -> None:
+    """Panel: resolving power against width."""
     w = res.widths_w_nm
     rho = res.resolution_fraction
     ax.plot(
@@ -222,7 +206,8 @@ def plot_resolving_power(ax, res: ResolvingPower) -> None:  # noqa: ANN001
     ax.legend(fontsize=7, loc="upper left")
 
 
-def plot_singular_values(ax, res: ResolvingPower) -> None:  # noqa: ANN001
+def plot_singular_values(ax, res: ResolvingPower) -> None:
+    """Panel: singular values of the kernel matrix."""
     s = res.singular_values
     k = np.arange(1, s.size + 1)
     ax.semilogy(k, np.where(s > 0, s, np.nan), "o-", ms=3, color="#0969da")
@@ -237,7 +222,8 @@ def plot_singular_values(ax, res: ResolvingPower) -> None:  # noqa: ANN001
     )
 
 
-def plot_round_trip(ax, rt: RoundTrip) -> None:  # noqa: ANN001
+def plot_round_trip(ax, rt: RoundTrip) -> None:
+    """Panel: a synthetic PSD and its recoveries."""
     med, lo, hi = rt.recovered_band()
     ax.fill_between(
         rt.widths_nm, lo, hi, color="#0969da", alpha=0.2, lw=0, label="recovered 16-84 %"
@@ -302,14 +288,8 @@ def write_report(report: CheckReport, kernel: Kernel, folder: str | Path) -> lis
     if temps:
         out += _save(overview_figure(report, kernel, temps[0]), folder, "overview")
     final = folder / "check.json"
-    fd, tmp = tempfile.mkstemp(prefix=".check.", suffix=".json.tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w") as fh:
-            json.dump(report.to_dict(), fh, indent=1)
-        _publish(tmp, final)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(final, "w") as fh:
+        json.dump(report.to_dict(), fh, indent=1)
     out.append(final)
     return out
 
@@ -381,16 +361,10 @@ def save_figure(fig: Figure, folder: Path, stem: str) -> list[Path]:
 
 
 def write_json(data: object, folder: Path, name: str) -> Path:
-    """Write ``data`` as JSON to ``folder / name`` atomically (temporary file, then rename)."""
+    """Write ``data`` as JSON to ``folder / name`` atomically (:func:`gcmc.files.atomic_write`)."""
     final = folder / name
-    fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w") as fh:
-            json.dump(data, fh, indent=1)
-        _publish(tmp, final)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(final, "w") as fh:
+        json.dump(data, fh, indent=1)
     return final
 
 

@@ -57,11 +57,15 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from gcmc.errors import InputError
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
+
+if TYPE_CHECKING:
+    from gcmc.kernel.reader import Kernel
 
 DEFAULT_RESOLUTION_FRACTION = 0.25
 DEFAULT_CHI2_THRESHOLD = 1.0
@@ -85,10 +89,12 @@ class NoiseModel:
             raise InputError("noise: the relative and absolute noise cannot both be 0")
 
     def sigma(self, amount_mmol_cm3: np.ndarray | float) -> np.ndarray:
+        """Standard deviation of a measured amount (mmol/cm^3) under this noise model."""
         n = np.asarray(amount_mmol_cm3, dtype=float)
         return np.sqrt((self.relative * n) ** 2 + self.absolute_mmol_cm3**2)
 
     def describe(self) -> str:
+        """The noise model as a formula."""
         return f"sigma = sqrt(({self.relative:g} n)^2 + ({self.absolute_mmol_cm3:g} mmol/cm3)^2)"
 
 
@@ -132,6 +138,7 @@ class ResolvingPower:
         return self._at(self.single_step_nm, w_nm)
 
     def is_resolved(self, w_nm: float) -> bool:
+        """Whether a width (w, nm) is resolved."""
         if self.all_resolved:
             return True
         if self.none_resolved:
@@ -139,6 +146,7 @@ class ResolvingPower:
         return bool(w_nm <= self.limit_w_nm)
 
     def summary(self) -> str:
+        """One line on the resolving power."""
         rho = self.resolution_fraction
         if self.none_resolved:
             return f"no kernel width is resolved (dw_2 > {rho:g} w everywhere)"
@@ -153,7 +161,7 @@ class ResolvingPower:
         )
 
 
-def _label(kernel) -> str:  # noqa: ANN001
+def _label(kernel) -> str:
     path = getattr(kernel, "path", None)
     return str(path) if path is not None else f"kernel {kernel.name!r}"
 
@@ -255,9 +263,9 @@ def extrapolate_ends(w: np.ndarray, d: np.ndarray) -> np.ndarray:
 
 
 def check_pressures(
-    kernel,
+    kernel: Kernel,
     temperature_K: float,
-    pressures_Pa: np.ndarray | None,  # noqa: ANN001
+    pressures_Pa: np.ndarray | None,
     what: str = "pressures",
 ) -> np.ndarray:
     """The pressures to use at a temperature: the kernel's own by default; given ones must be
@@ -283,7 +291,7 @@ def check_pressures(
 def kernel_relative_errors(
     kernel,
     t: int,
-    columns: np.ndarray,  # noqa: ANN001
+    columns: np.ndarray,
     p: np.ndarray,
 ) -> np.ndarray:
     """Relative standard errors of the kernel's isotherms at pressures p for the given width
@@ -320,7 +328,7 @@ def kernel_relative_errors(
 
 
 def resolving_power(
-    kernel,  # noqa: ANN001  (gcmc.reader.Kernel)
+    kernel,
     temperature_K: float,
     pressures_Pa: np.ndarray | None = None,
     noise: NoiseModel | None = None,

@@ -120,14 +120,17 @@ class Box:
     # -- parameters ---------------------------------------------------------------------
     @property
     def n_molecules(self) -> int:
+        """Molecules in the box now."""
         return int(self.ip[E.I_N])
 
     @property
     def n_bins(self) -> int:
+        """Number of z bins of the density profile."""
         return int(self.ip[E.I_NBINS])
 
     @property
     def max_displacement_nm(self) -> float:
+        """Maximum displacement of a translation move (nm)."""
         return float(self.fp[E.F_DMAX])
 
     @max_displacement_nm.setter
@@ -136,13 +139,20 @@ class Box:
 
     @property
     def activity_nm3(self) -> float:
+        """Activity z = f/kT of the reservoir (nm^-3)."""
         return float(self.fp[E.F_ZV] / self.fp[E.F_VOLUME])
 
     @activity_nm3.setter
     def activity_nm3(self, value: float) -> None:
         self.fp[E.F_ZV] = value * self.fp[E.F_VOLUME]
 
+    @property
+    def insertion_trials(self) -> int:
+        """Trial positions per insertion (1: plain insertion; more: biased insertion)."""
+        return int(self.ip[E.I_KTRIALS])
+
     def set_insertion_trials(self, k: int) -> None:
+        """Set the trial positions per insertion (at least 1)."""
         self.ip[E.I_KTRIALS] = max(1, int(k))
 
     # -- moves ------------------------------------------------------------------------------
@@ -210,6 +220,7 @@ class Box:
 
     # -- configurations ---------------------------------------------------------------------
     def positions(self) -> np.ndarray:
+        """The molecules' positions (N, 3) in nm, a copy."""
         n = self.n_molecules
         c = self.pid_cell[:n]
         s = self.pid_slot[:n]
@@ -266,19 +277,43 @@ class Box:
         return self.n_molecules
 
     def acceptance(self) -> dict[str, float]:
-        c = self.counters
+        """Accepted fraction of each move kind since the counters were last reset."""
+        return acceptance_ratios(self.counters)
 
-        def ratio(a: int, b: int) -> float:
-            return float(c[a] / c[b]) if c[b] else float("nan")
-
-        return {
-            "displacement": ratio(E.C_DISP_ACC, E.C_DISP_TRY),
-            "insertion": ratio(E.C_INS_ACC, E.C_INS_TRY),
-            "deletion": ratio(E.C_DEL_ACC, E.C_DEL_TRY),
-        }
+    @property
+    def exchanges(self) -> int:
+        """Accepted insertions + deletions since the counters were last reset."""
+        return exchanges_of(self.counters)
 
     def reset_counters(self) -> None:
+        """Zero the move counters."""
         self.counters[:] = 0
+
+
+def new_counters() -> np.ndarray:
+    """A zeroed array in the layout of :attr:`Box.counters` (to accumulate them elsewhere)."""
+    return np.zeros(E.N_COUNTERS, dtype=np.int64)
+
+
+def acceptance_ratios(counters: np.ndarray) -> dict[str, float]:
+    """Accepted fraction of displacements, insertions and deletions from move counters in
+    the layout of :attr:`Box.counters` (NaN for a move kind never tried)."""
+    c = counters
+
+    def ratio(a: int, b: int) -> float:
+        return float(c[a] / c[b]) if c[b] else float("nan")
+
+    return {
+        "displacement": ratio(E.C_DISP_ACC, E.C_DISP_TRY),
+        "insertion": ratio(E.C_INS_ACC, E.C_INS_TRY),
+        "deletion": ratio(E.C_DEL_ACC, E.C_DEL_TRY),
+    }
+
+
+def exchanges_of(counters: np.ndarray) -> int:
+    """Accepted insertions + deletions from move counters in the layout of
+    :attr:`Box.counters`."""
+    return int(counters[E.C_INS_ACC] + counters[E.C_DEL_ACC])
 
 
 def _neighbour_cells(

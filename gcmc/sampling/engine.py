@@ -152,6 +152,7 @@ def pair_energy(x, y, z, c_home, skip_cell, skip_slot, fp, ip, cell_xyz, cell_n,
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def cell_of(x, y, z, fp, ip):
+    """Index of the cell holding position (x, y, z) (nm); z clamped into the box."""
     ix = min(int(x * fp[F_INV_CX]), ip[I_NCX] - 1)
     iy = min(int(y * fp[F_INV_CY]), ip[I_NCY] - 1)
     iz = min(max(int(z * fp[F_INV_CZ]), 0), ip[I_NCZ] - 1)
@@ -160,11 +161,13 @@ def cell_of(x, y, z, fp, ip):
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def zbin_of(z, fp, ip):
+    """Index of the density-profile bin of height z (nm), clamped."""
     return min(max(int(z * fp[F_INV_DZ]), 0), ip[I_NBINS] - 1)
 
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def wall_energy(z, fp, ip):
+    """Energy (K) of one molecule at height z (nm) from both slit walls; 0 in bulk."""
     if ip[I_SLIT] == 0:
         return 0.0
     return _slit_wall(z, fp[F_LZ], fp[F_WALL_PRE], fp[F_SIG_SF], fp[F_DELTA])
@@ -245,6 +248,7 @@ def trial_energy(
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def add_molecule(x, y, z, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n):
+    """Append a molecule at (x, y, z) to the cell lists and the z profile (no energy)."""
     i = ip[I_N]
     c = cell_of(x, y, z, fp, ip)
     s = cell_n[c]
@@ -261,6 +265,8 @@ def add_molecule(x, y, z, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def remove_molecule(i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n):
+    """Remove molecule ``i`` from the cell lists and the z profile; the last molecule takes
+    its id (no energy)."""
     c = pid_cell[i]
     s = pid_slot[i]
     zbin_n[zbin_of(cell_xyz[c, 2, s], fp, ip)] -= 1

@@ -47,21 +47,23 @@ import numpy as np
 from gcmc.physics.henry import pore_limit
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.sampling import statistics as st
-from gcmc.sampling.box import Box, EngineOptions
+from gcmc.sampling.box import Box, EngineOptions, acceptance_ratios, new_counters
 from gcmc.sampling.point import (
+    CHUNKS,
+    MIN_SAMPLES_DRIFT,
+    MIN_SAMPLES_TARGET,
     PointOutcome,
     SamplingSettings,
     ThermoState,
     _analyse,
     _blocked_result,
     _ReplicaRun,
+    adapted_step,
 )
 from gcmc.sampling.rng import seed_state
 
 #: default length of a round (moves per box between swap attempts), in units of sample_every
 ROUND_SAMPLES = 10
-
-_K_TRIALS = 5  # engine iparams index of the insertion trials (gcmc.sampling.engine.I_KTRIALS)
 
 
 def swap_acceptance(z_i: float, z_j: float, n_i: int, n_j: int) -> float:
@@ -86,6 +88,7 @@ class LadderOutcome:
 
     @property
     def swap_acceptance(self) -> np.ndarray:
+        """Accepted fraction of swaps per neighbouring pair (NaN where none was tried)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             return np.where(
                 self.swap_attempts > 0,
@@ -108,7 +111,7 @@ class _Rung:
         self.written = 0
         self.moves = 0
         self.seconds = 0.0
-        self.counters = np.zeros(6, dtype=np.int64)
+        self.counters = new_counters()
 
     def take(self, box: Box) -> None:
         box.activity_nm3 = self.z
@@ -116,12 +119,7 @@ class _Rung:
         box.max_displacement_nm = self.dmax
 
     def acceptance(self) -> dict[str, float]:
-        c = self.counters
-
-        def ratio(a: int, b: int) -> float:
-            return float(c[a] / c[b]) if c[b] else float("nan")
-
-        return {"displacement": ratio(1, 0), "insertion": ratio(3, 2), "deletion": ratio(5, 4)}
+        return acceptance_ratios(self.counters)
 
 
 class _Ladder:
@@ -163,7 +161,7 @@ class _Ladder:
             self.rungs.append(
                 _Rung(
                     s.activity_nm3,
-                    int(box.ip[_K_TRIALS]),
+                    box.insertion_trials,
                     box.max_displacement_nm,
                     capacity,
                     box.n_bins,
@@ -223,7 +221,7 @@ class _Ladder:
             sig = box.model.probe.sigma_nm
             lmax = 0.5 * min(box.model.box_lengths_nm)
             if math.isfinite(a):
-                rung.dmax = float(np.clip(rung.dmax * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, lmax))
+                rung.dmax = adapted_step(rung.dmax, a, sig, lmax)
             if allow_bias and s.insertion_trials == 0 and rung.k_trials == 1:
                 ins = acc["insertion"]
                 if math.isfinite(ins) and ins < s.bias_threshold and box.n_molecules > 0:
@@ -237,7 +235,7 @@ class _Ladder:
         if moves <= 0:
             return
         n_rounds = self.rounds_for(moves)
-        per_adapt = max(1, n_rounds // 20)
+        per_adapt = max(1, n_rounds // CHUNKS)
         for r in range(n_rounds):
             self.run_round(z_scale)
             if (r + 1) % per_adapt == 0:
@@ -256,7 +254,7 @@ class _Ladder:
             self.rounds_for(total), len(self.rungs[0].n) * s.sample_every // self.round_moves
         )
         min_rounds = self.rounds_for(s.production_moves)
-        check_every = max(1, min_rounds // 20)
+        check_every = max(1, min_rounds // CHUNKS)
         for r in range(n_rounds):
             self.run_round()
             if target > 0 and r + 1 >= min_rounds and (r + 1) % check_every == 0:
@@ -275,7 +273,7 @@ class _Ladder:
             uff = rung.uff[: rung.written]
             usf = rung.usf[: rung.written]
             t0 = 0
-            if len(n) >= 40 and np.ptp(n) > 0:
+            if len(n) >= MIN_SAMPLES_DRIFT and np.ptp(n) > 0:
                 t0, _, _ = st.detect_equilibration(n.astype(float))
             acc = rung.acceptance()
             runs.append(
@@ -296,7 +294,7 @@ class _Ladder:
 
 
 def _target_met(rung: _Rung, target: float) -> bool:
-    if rung.written < 64:
+    if rung.written < MIN_SAMPLES_TARGET:
         return False
     x = rung.n[: rung.written].astype(float)
     est = st.block_average(x)

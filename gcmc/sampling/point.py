@@ -17,12 +17,12 @@ from typing import Any
 
 import numpy as np
 
+from gcmc.kernel import flags as fl
 from gcmc.physics.henry import pore_limit
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.physics.units import activity_per_nm3, kelvin_to_kj_per_mol, per_nm3_to_mmol_per_cm3
 from gcmc.sampling import statistics as st
 from gcmc.sampling.box import Box, EngineOptions
-from gcmc.sampling.engine import C_DEL_ACC, C_INS_ACC
 from gcmc.sampling.rng import seed_state
 
 
@@ -39,6 +39,7 @@ class ThermoState:
 
     @property
     def activity_nm3(self) -> float:
+        """Activity z = f/kT (nm^-3)."""
         return activity_per_nm3(self.fugacity_Pa, self.temperature_K)
 
 
@@ -79,6 +80,7 @@ class SamplingSettings:
     exchange: bool = False
 
     def validate(self) -> None:
+        """Raise InputError naming the first setting out of range."""
         from gcmc.errors import InputError
 
         for name in ("equilibration_moves", "production_moves", "sample_every"):
@@ -134,11 +136,14 @@ class PointResult:
     pore_volume_nm3: float = float("nan")
 
     def to_dict(self) -> dict[str, Any]:
+        """The result as a plain dict."""
         return asdict(self)
 
 
 @dataclass
 class PointOutcome:
+    """A point's result with what a ladder carries on to the next point."""
+
     result: PointResult
     positions: np.ndarray  # final configuration of the first replica (for the ladder)
     max_displacement_nm: float
@@ -163,6 +168,33 @@ class _ReplicaRun:
 
 
 Progress = Callable[[int], None]
+
+# ---- the numbers of the stopping rules (shared with gcmc.sampling.ladder) -----------------
+#: Equilibration and production run in this many chunks: step sizes adapt after each
+#: equilibration chunk, and a target relative error is judged after each production chunk.
+CHUNKS = 20
+#: Samples of N a replica needs before its target relative error is judged (block averaging
+#: needs several blocks of a few samples each).
+MIN_SAMPLES_TARGET = 64
+#: Samples of N needed for the equilibration cut (Chodera 2016) and the drift test (two
+#: halves of the production); below it the point is flagged too_few_samples.
+MIN_SAMPLES_DRIFT = 40
+#: Samples of N (all replicas) needed for the isosteric heat from the fluctuation ratio.
+MIN_SAMPLES_HEAT = 64
+#: Step-size adaptation in equilibration: the displacement acceptance aimed at, the range
+#: of one update factor, and the smallest step (in probe sigma). The largest step is half
+#: the shortest box edge.
+DISPLACEMENT_ACCEPTANCE = 0.4
+STEP_FACTOR_RANGE = (0.5, 1.5)
+MIN_STEP_SIGMA = 0.01
+
+
+def adapted_step(step_nm: float, acceptance: float, sigma_nm: float, max_nm: float) -> float:
+    """The next maximum displacement from the last chunk's displacement acceptance."""
+    lo, hi = STEP_FACTOR_RANGE
+    factor = np.clip(acceptance / DISPLACEMENT_ACCEPTANCE, lo, hi)
+    return float(np.clip(step_nm * factor, MIN_STEP_SIGMA * sigma_nm, max_nm))
+
 
 #: A replica must accept at least this many insertions + deletions in production (and at
 #: least as many as the molecules it holds) for its mean N to count as sampled.
@@ -194,8 +226,7 @@ def _equilibrate(
     """Run ``moves`` moves with step-size adaptation (equilibration only)."""
     if moves <= 0:
         return
-    chunks = 20
-    per = max(1, moves // chunks)
+    per = max(1, moves // CHUNKS)
     done = 0
     sig = box.model.probe.sigma_nm
     lmax = 0.5 * min(box.model.box_lengths_nm)
@@ -210,10 +241,8 @@ def _equilibrate(
         acc = box.acceptance()
         a = acc["displacement"]
         if math.isfinite(a):
-            box.max_displacement_nm = float(
-                np.clip(box.max_displacement_nm * np.clip(a / 0.4, 0.5, 1.5), 0.01 * sig, lmax)
-            )
-        if auto_bias and done >= moves // 2 and box.ip[5] == 1:
+            box.max_displacement_nm = adapted_step(box.max_displacement_nm, a, sig, lmax)
+        if auto_bias and done >= moves // 2 and box.insertion_trials == 1:
             ins = acc["insertion"]
             if math.isfinite(ins) and ins < settings.bias_threshold and box.n_molecules > 0:
                 box.set_insertion_trials(settings.biased_trials)
@@ -274,7 +303,7 @@ class _Replica:
         self.profile = np.zeros(box.n_bins)
         self.written = 0
         self.produced = 0  # production moves
-        self.chunk = max(every, (settings.production_moves // 20) // every * every)
+        self.chunk = max(every, (settings.production_moves // CHUNKS) // every * every)
         box.reset_counters()
 
     @property
@@ -303,18 +332,18 @@ class _Replica:
     @property
     def exchanges(self) -> int:
         """Accepted insertions + deletions so far in production."""
-        return int(self.box.counters[C_INS_ACC] + self.box.counters[C_DEL_ACC])
+        return self.box.exchanges
 
     def meets_target(self) -> tuple[bool, float, float]:
         """(done, mean, stderr) of N so far: the target relative error is met, the drift test
         passes and the content was renewed through the reservoir (an empty pore is done)."""
-        if self.produced < self.settings.production_moves or self.written < 64:
+        if self.produced < self.settings.production_moves or self.written < MIN_SAMPLES_TARGET:
             return False, math.nan, math.nan
         x = self.out_n[: self.written].astype(float)
         if x.max() == 0.0:
             return True, 0.0, 0.0  # nothing entered: nothing to converge
         x = x[_equilibration_cut(x) :]  # judged as the point will be (see finish)
-        if len(x) < 64:
+        if len(x) < MIN_SAMPLES_TARGET:
             return False, math.nan, math.nan
         est = st.block_average(x)
         mean, err = est.mean, est.stderr
@@ -341,7 +370,7 @@ class _Replica:
             moves=self.moves + self.produced,
             seconds=self.clock[0],
             t0=t0,
-            k_trials=int(self.box.ip[5]),
+            k_trials=self.box.insertion_trials,
             acceptance=self.box.acceptance(),
             start_n=self.start_n,
             exchanges=self.exchanges,
@@ -351,7 +380,7 @@ class _Replica:
 def _equilibration_cut(n: np.ndarray) -> int:
     """Samples to drop from the start of a production series (Chodera 2016; none if the
     series is short or constant)."""
-    if len(n) >= 40 and np.ptp(n) > 0:
+    if len(n) >= MIN_SAMPLES_DRIFT and np.ptp(n) > 0:
         return int(st.detect_equilibration(np.asarray(n, dtype=float))[0])
     return 0
 
@@ -412,7 +441,7 @@ def _blocked_result(model: PoreModel, state: ThermoState) -> PointOutcome:
         moves=0,
         seconds=0.0,
         converged=True,
-        flags=["inaccessible"],
+        flags=[fl.flag_text(fl.INACCESSIBLE)],
         pore_volume_nm3=model.pore_volume_nm3,
     )
     return PointOutcome(
@@ -467,37 +496,42 @@ def _analyse(
     errs = [e.stderr for e in ests]
     for i, e in enumerate(ests):
         if not e.reliable:
-            flags.append(f"error_unreliable[{i}]: {e.reason}")
-    drift = [st.drift_test(r.n.astype(float)) if len(r.n) >= 40 else None for r in runs]
+            flags.append(fl.flag_text(fl.ERROR_UNRELIABLE, i, e.reason))
+    drift = [
+        st.drift_test(r.n.astype(float)) if len(r.n) >= MIN_SAMPLES_DRIFT else None for r in runs
+    ]
     dz = 0.0
     for i, d in enumerate(drift):
         if d is None:
-            flags.append(f"too_few_samples[{i}]")
+            flags.append(fl.flag_text(fl.TOO_FEW_SAMPLES, i))
         else:
             dz = max(dz, abs(d.z_score)) if math.isfinite(d.z_score) else dz
             if not d.passed:
-                flags.append(f"drift[{i}]: first vs second half z = {d.z_score:.1f}")
+                flags.append(fl.flag_text(fl.DRIFT, i, f"first vs second half z = {d.z_score:.1f}"))
     agree_z = 0.0
     if len(runs) >= 2:
         agree_z, ok = _replicas_agree(settings, means[0], errs[0], means[1], errs[1])
         if not ok:
-            flags.append(f"replicas_disagree: {means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})")
+            detail = f"{means[0]:.4g} vs {means[1]:.4g} (z = {agree_z:.1f})"
+            flags.append(fl.flag_text(fl.REPLICAS_DISAGREE, detail=detail))
     for i, r in enumerate(runs):
         if _too_few_exchanges(r.exchanges, means[i]):
-            flags.append(
-                f"few_exchanges[{i}]: {r.exchanges} accepted insertions + deletions in "
-                f"production for N = {means[i]:.4g}"
+            detail = (
+                f"{r.exchanges} accepted insertions + deletions in production for "
+                f"N = {means[i]:.4g}"
             )
+            flags.append(fl.flag_text(fl.FEW_EXCHANGES, i, detail))
     below = means[0] * (1.0 - settings.agreement_rel)
     if len(runs) >= 2 and means[0] >= 1.0 and 0 <= runs[1].start_n < below:
         # the two-sided check needs the second replica to come from above, or at least from
         # no further below than the replicas' agreement tolerance (a nearly incompressible,
         # filled pore barely takes more molecules at 20 z); below one molecule on average the
         # replicas mix at once and the over-fill may land on N = 0 by chance
-        flags.append(
-            f"not_bracketed: the over-filled replica started at N = {runs[1].start_n}, below "
-            f"the first replica's mean {means[0]:.4g}"
+        detail = (
+            f"the over-filled replica started at N = {runs[1].start_n}, below the first "
+            f"replica's mean {means[0]:.4g}"
         )
+        flags.append(fl.flag_text(fl.NOT_BRACKETED, detail=detail))
     # Pool the replicas (inverse-variance weights where errors are available).
     w = np.array([1.0 / e**2 if e > 0 else 0.0 for e in errs])
     if w.sum() > 0 and all(e > 0 for e in errs):
@@ -506,7 +540,7 @@ def _analyse(
     else:
         n_mean = float(np.mean(means))
         n_err = float(max(errs)) if errs else float("nan")
-    if len(runs) >= 2 and "replicas_disagree" in " ".join(flags):
+    if len(runs) >= 2 and fl.has_flag(flags, fl.REPLICAS_DISAGREE):
         n_err = max(n_err, 0.5 * abs(means[0] - means[1]))  # an honest spread
     n_all = np.concatenate([r.n for r in runs]).astype(float)
     u_all = np.concatenate([r.uff + r.usf for r in runs])
@@ -517,7 +551,7 @@ def _analyse(
     uff_per = float(uff_all.mean() / eff) if len(uff_all) else float("nan")
     usf_per = float(usf_all.mean() / eff) if len(usf_all) else float("nan")
     q = q_err = float("nan")
-    if len(n_all) > 64 and np.var(n_all) > 0:
+    if len(n_all) > MIN_SAMPLES_HEAT and np.var(n_all) > 0:
         ratio, ratio_err = st.fluctuation_ratio(runs[0].uff + runs[0].usf, runs[0].n.astype(float))
         if math.isfinite(ratio):
             q = kelvin_to_kj_per_mol(state.temperature_K + state.residual_enthalpy_K - ratio)
@@ -528,22 +562,18 @@ def _analyse(
     density_err = n_err / vol if vol > 0 else float("nan")
     bulk = state.bulk_density_per_nm3
     excess = density - bulk if math.isfinite(bulk) else float("nan")
-    converged = not any(
-        f.startswith(
-            ("drift", "replicas_disagree", "error_unreliable", "too_few", "not_bracketed", "few_ex")
-        )
-        for f in flags
-    )
+    converged = not fl.makes_unconverged(flags)
     if (
         settings.target_rel_stderr > 0
         and n_mean > 0
         and n_err / n_mean > settings.target_rel_stderr
     ):
-        flags.append(
-            f"target_not_reached: rel. error {n_err / n_mean:.2g} > "
-            f"{settings.target_rel_stderr:.2g} within the move budget"
+        detail = (
+            f"rel. error {n_err / n_mean:.2g} > {settings.target_rel_stderr:.2g} within the "
+            "move budget"
         )
-        converged = False
+        flags.append(fl.flag_text(fl.TARGET_NOT_REACHED, detail=detail))
+        converged = not fl.makes_unconverged(flags)
     r0 = runs[0]
     result = PointResult(
         temperature_K=state.temperature_K,

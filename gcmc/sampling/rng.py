@@ -28,6 +28,7 @@ def _rotl(x, k):
 
 @njit(inline="always", cache=True)
 def next_u64(s):
+    """The next 64-bit output of the xoshiro256** state ``s`` (updated in place)."""
     result = _rotl(s[1] * _U5, _U7) * _U9
     t = s[1] << _U17
     s[2] ^= s[0]
