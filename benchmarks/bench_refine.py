@@ -36,12 +36,13 @@ def _variant(text: str, out: Path, refine: bool) -> str:
 
 
 def _cpu_seconds(result) -> float:  # noqa: ANN001
-    from gcmc.pipeline.tasks import load_task, task_cpu_seconds
+    """CPU seconds of the first pass: the plan's own task files (the task folder may also
+    hold the refined build's files, which it shares)."""
+    from gcmc.pipeline.tasks import load_task, task_cpu_seconds, task_path
 
-    folder = result.plan.task_dir
     total = 0.0
-    for p in sorted(folder.glob("*.npz")):
-        arrays, _ = load_task(p)
+    for t in result.plan.tasks:
+        arrays, _ = load_task(task_path(result.plan, t))
         total += task_cpu_seconds(arrays)
     return total
 
