@@ -1,8 +1,9 @@
 """The layer rule of the package (DEVELOPERS.md, "The architecture in a page").
 
-Each layer imports only the layers below it (cli -> api -> quality -> pipeline -> sampling ->
-{physics, kernel} -> {errors, files}; the command line may use the Python API, nothing below
-uses either), and the kernel file format imports nothing beyond numpy and h5py.
+Each layer imports only the layers below it (cli -> api -> pipeline -> {quality, sampling} ->
+{physics, kernel} -> {errors, files}: the build calls the quality criteria to refine its
+kernel; the command line may use the Python API, nothing below uses either), and the kernel
+file format imports nothing beyond numpy and h5py.
 The static contracts live in pyproject.toml ([tool.importlinter]); the runtime test below
 also catches an import hidden inside a function that the static graph sees too, and a
 third-party package pulled in by a dependency.
@@ -57,4 +58,4 @@ def test_the_api_sits_above_the_layers_it_uses() -> None:
 
     cfg = tomllib.loads((REPO / "pyproject.toml").read_text())
     layers = cfg["tool"]["importlinter"]["contracts"][0]["layers"]
-    assert layers[:3] == ["gcmc.cli", "gcmc.api", "gcmc.quality"]
+    assert layers[:3] == ["gcmc.cli", "gcmc.api", "gcmc.pipeline"]

@@ -1,6 +1,10 @@
 """The quickstart kernel end to end (the README's main command), and what a simulated kernel
 must show: fits near reduced chi-square 1 at default settings, and a Henry-law extension below
-the lowest simulated pressure that agrees with the simulated low-pressure points."""
+the lowest simulated pressure that agrees with the simulated low-pressure points.
+
+The default suite builds the quickstart's first grid only (its ``[target]`` with
+``refine = false``: the refinement rounds cost minutes); the slow test builds it as shipped,
+refining itself, and runs ``gcmc check`` on the result."""
 
 from __future__ import annotations
 
@@ -16,13 +20,22 @@ import pytest
 ROOT = Path(__file__).resolve().parents[1]
 
 
+def quickstart_text(out: Path, refine: bool) -> str:
+    """configs/quickstart.toml with its output in ``out`` (and refinement off unless asked)."""
+    text = (ROOT / "configs" / "quickstart.toml").read_text()
+    text = text.replace('output = "../runs/quickstart"', f'output = "{out}"')
+    assert str(out) in text, "the quickstart's output line changed; update this test"
+    if not refine:
+        assert "\n[target]\n" in text
+        text = text.replace("\n[target]\n", "\n[target]\nrefine = false\n", 1)
+    return text
+
+
 @pytest.fixture(scope="module")
 def quickstart_kernel(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """Build configs/quickstart.toml as shipped (only the output folder moved to tmp)."""
+    """Build configs/quickstart.toml's first grid (output folder in tmp, refinement off)."""
     tmp = tmp_path_factory.mktemp("quickstart")
-    text = (ROOT / "configs" / "quickstart.toml").read_text()
-    text = text.replace('output = "../runs/quickstart"', f'output = "{tmp / "out"}"')
-    assert str(tmp / "out") in text, "the quickstart's output line changed; update this test"
+    text = quickstart_text(tmp / "out", refine=False)
     cfg = tmp / "quickstart.toml"
     cfg.write_text(text)
     env = dict(os.environ)
@@ -117,3 +130,29 @@ def test_show_and_export(quickstart_kernel: Path, tmp_path: Path) -> None:
     assert main(["export", str(quickstart_kernel), "--format", "csv", "--output", str(out)]) == 0
     assert out.exists() and out.stat().st_size > 0
     shutil.rmtree(tmp_path, ignore_errors=True)
+
+
+@pytest.mark.slow
+def test_refined_quickstart_passes_its_own_check(tmp_path: Path) -> None:
+    """The README's first command, then `gcmc check` on its kernel: exit 0 (no criterion
+    fails) against the target stored in the kernel. Minutes of CPU (benchmarks/README.md,
+    "Refinement")."""
+    cfg = tmp_path / "quickstart.toml"
+    cfg.write_text(quickstart_text(tmp_path / "out", refine=True))
+    build = subprocess.run(
+        [sys.executable, "-m", "gcmc.cli", "build", str(cfg), "--no-progress"],
+        capture_output=True,
+        text=True,
+        timeout=3600,
+    )
+    assert build.returncode == 0, build.stderr[-3000:]
+    assert "refinement" in build.stdout
+    (kernel,) = sorted((tmp_path / "out").glob("*.v1.h5"))
+    check = subprocess.run(
+        [sys.executable, "-m", "gcmc.cli", "check", str(kernel)],
+        capture_output=True,
+        text=True,
+        timeout=1200,
+    )
+    assert "target (stored in the kernel" in check.stdout
+    assert check.returncode == 0, check.stdout[-4000:]

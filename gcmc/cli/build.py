@@ -155,7 +155,13 @@ def _summary(result) -> None:
             )
         )
     rows.append(("forms used", ", ".join(f"{k} x{v}" for k, v in forms.most_common())))
+    # the tasks' own clocks, summed (wall time per task: on a loaded machine more than CPU)
     rows.append(("task wall-clock, summed", f"{float(np.sum(data.task_seconds)):.1f} s"))
+    if result.refinement is not None:
+        from gcmc.cli.kernel import refinement_lines
+
+        for i, line in enumerate(refinement_lines(result.refinement)):
+            rows.append(("refinement" if i == 0 else "", line))
     rows.append(("wall time", f"{seconds:.1f} s"))
     width = max(len(r[0]) for r in rows)
     print("\n".join(f"  {k:<{width}}  {v}" for k, v in rows))

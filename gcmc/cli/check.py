@@ -60,10 +60,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     c.add_argument(
         "--target-rel-stderr",
         type=float,
-        default=0.02,
+        default=None,
         metavar="R",
-        help="target relative standard error of a point (the run config's "
-        "[sampling] target_rel_stderr)",
+        help="target relative standard error of a point (default: the kernel's stored "
+        "target, else 0.02)",
     )
     c.add_argument(
         "--target-rel-error",
@@ -76,16 +76,18 @@ def register(sub: argparse._SubParsersAction) -> None:
     n.add_argument(
         "--noise-rel",
         type=float,
-        default=0.01,
+        default=None,
         metavar="R",
-        help="relative noise R of a measured amount n (sigma = sqrt((R n)^2 + A^2))",
+        help="relative noise R of a measured amount n (sigma = sqrt((R n)^2 + A^2); "
+        "default: the kernel's stored target, else 0.01)",
     )
     n.add_argument(
         "--noise-abs-mmol-cm3",
         type=float,
-        default=0.01,
+        default=None,
         metavar="A",
-        help="absolute noise A of a measured amount, mmol per cm3 of pore volume",
+        help="absolute noise of a measured amount, mmol per cm3 of pore volume (default: "
+        "the kernel's stored target, else 0.01)",
     )
     src = n.add_mutually_exclusive_group()
     src.add_argument(
@@ -93,7 +95,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="FILE",
         help="the experiment's pressures in Pa, a text file (numbers separated by "
         "spaces, commas or new lines; '#' starts a comment); default: the "
-        "kernel's own",
+        "kernel's stored target's, else the kernel's own",
     )
     src.add_argument(
         "--p-range",
@@ -182,11 +184,18 @@ def read_pressure_file(path: str) -> list[float]:
     return [float(x) for x in read_number_file(path, "--pressures-Pa", " Pa", minimum=2)]
 
 
-def validate_common(args: argparse.Namespace) -> None:
-    """The checks of the options shared by the single and the set check."""
+def validate_common(args: argparse.Namespace, target: Any = None) -> None:
+    """The checks of the options shared by the single and the set check. Options not given
+    take the values of ``target`` (a kernel's stored QualityTarget), else the defaults."""
     _positive("target-rel-stderr", args.target_rel_stderr)
     _positive("noise-rel", args.noise_rel, allow_zero=True)
     _positive("noise-abs-mmol-cm3", args.noise_abs_mmol_cm3, allow_zero=True)
+    if args.target_rel_stderr is None:
+        args.target_rel_stderr = target.target_rel_error if target else 0.02
+    if args.noise_rel is None:
+        args.noise_rel = target.noise_rel if target else 0.01
+    if args.noise_abs_mmol_cm3 is None:
+        args.noise_abs_mmol_cm3 = target.noise_abs_mmol_cm3 if target else 0.01
     _positive("chi2-threshold", args.chi2_threshold)
     _positive("resolution-fraction", args.resolution_fraction)
     _positive("pore-volume", args.pore_volume)
@@ -228,11 +237,14 @@ def run_check(args: argparse.Namespace) -> int:
         return run_check_set(args)
     if args.skip_member_checks:
         raise InputError("--skip-member-checks: only for a set of kernels")
-    validate_common(args)
+    kernel = open_kernel(args.kernel[0])
+    target = stored_target(kernel)
+    validate_common(args, target)
     pressures = experiment_pressures(args)
+    if pressures is None and target is not None and target.pressures_Pa is not None:
+        pressures = target.pressures_array()
     if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
         raise InputError(f"--report {args.report}: exists and is not a folder")
-    kernel = open_kernel(args.kernel[0])
     temps = None if args.temperature is None else (float(args.temperature),)
     if temps is not None:
         kernel.temperature_index(temps[0])  # InputError naming the kernel's temperatures
@@ -249,6 +261,8 @@ def run_check(args: argparse.Namespace) -> int:
         inversion_method=args.inversion,
     )
     report = run_checks(kernel, settings)
+    if target is not None and not args.json:
+        print(f"target (stored in the kernel; options override): {target.describe()}")
     written = []
     if args.report is not None:
         from gcmc.quality.report import write_report
@@ -265,6 +279,20 @@ def run_check(args: argparse.Namespace) -> int:
         if written:
             print(f"report: {len(written)} file(s) in {args.report}")
     return report.exit_code
+
+
+def stored_target(kernel):  # noqa: ANN001, ANN201 - a gcmc.reader.Kernel
+    """The quality target a kernel was built for (its provenance's ``target``), or None."""
+    from gcmc.quality.target import QualityTarget
+
+    d = kernel.data.provenance.get("target") if isinstance(kernel.data.provenance, dict) else None
+    if d is None:
+        return None
+    return QualityTarget.from_dict(d, where=f"{args_label(kernel)}: provenance target")
+
+
+def args_label(kernel) -> str:  # noqa: ANN001
+    return str(kernel.path) if kernel.path is not None else kernel.name
 
 
 def run_diff(args: argparse.Namespace) -> int:

@@ -242,9 +242,60 @@ def summary(kernel: Kernel) -> str:
         add("", "libraries " + ", ".join(f"{k} {v}" for k, v in libs.items()))
     secs = np.asarray(d.task_seconds, dtype=float)
     add("", f"tasks {secs.size}, wall-clock {np.nansum(secs):.4g} s summed over tasks")
+    if isinstance(prov.get("target"), dict):
+        from gcmc.quality.target import QualityTarget
+
+        try:
+            add("target", QualityTarget.from_dict(prov["target"]).describe())
+        except Exception as exc:  # noqa: BLE001 - show what is there, never fail on it
+            add("target", f"unreadable ({exc})")
+    ref = prov.get("refinement")
+    if isinstance(ref, dict):
+        for i, line in enumerate(refinement_lines(ref)):
+            add("refinement" if i == 0 else "", line)
     if d.extra:
         add("extra", ", ".join(sorted(d.extra)))
     return "\n".join(lines)
+
+
+def refinement_lines(ref: dict, details: int = 8) -> list[str]:
+    """What the refinement rounds did, from a kernel's ``provenance["refinement"]``: rounds,
+    widths added where and why, points rerun with what, what still fails and why."""
+    rounds = ref.get("rounds", [])
+    w0, w1 = ref.get("widths_initial_H_nm", []), ref.get("widths_final_H_nm", [])
+    check = ref.get("check", {})
+    out = [
+        f"{len(rounds)} round(s); widths {len(w0)} -> {len(w1)}; "
+        f"{len(ref.get('points_rerun', {}))} point(s) rerun; "
+        f"{ref.get('cpu_seconds', float('nan')):.0f} of "
+        f"{ref.get('budget_cpu_seconds', float('nan')):.0f} CPU-s; stopped: "
+        f"{ref.get('stop', '?')}; check at build: {check.get('verdict', '?')}"
+    ]
+    for r in rounds:
+        added = r.get("widths_added", [])
+        reruns = r.get("reruns", [])
+        methods = Counter(f"{x['method']} {x['effort']:g}x" for x in reruns)
+        text = f"round {r['round']}: +{len(added)} width(s)"
+        if added:
+            text += " (H = " + ", ".join(f"{x['H_nm']:.4g}" for x in added) + " nm)"
+        text += f", {len(reruns)} rerun(s)"
+        if reruns:
+            text += " (" + ", ".join(f"{k} x{v}" for k, v in methods.most_common()) + ")"
+        if r.get("cut_by_budget"):
+            text += f", {len(r['cut_by_budget'])} cut by budget"
+        out.append(text)
+        whys = Counter(a["why"].split(":", 1)[0] for a in added)
+        for why, count in whys.most_common(3):
+            out.append(f"  widths for {why} (x{count})")
+    still = ref.get("still_failing", [])
+    out.append(f"still failing: {len(still)}" + ("" if still else " (none)"))
+    out += [f"  {line}" for line in still[:details]]
+    if len(still) > details:
+        out.append(f"  ... {len(still) - details} more (provenance refinement.still_failing)")
+    bad = {k: v for k, v in check.get("criteria", {}).items() if v in ("warn", "fail")}
+    if bad:
+        out.append("check: " + ", ".join(f"{k} {v}" for k, v in bad.items()))
+    return out
 
 
 def run_show(args: argparse.Namespace) -> int:

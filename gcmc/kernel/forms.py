@@ -721,3 +721,30 @@ def evaluate_fit(
     elif below == "henry":
         raise InputError("p_low: required when below='henry'")
     return out
+
+
+# --------------------------------------------------------------------------------------------
+# the fitter's standard-error rule (gcmc.pipeline.fits, module docstring), shared with the
+# quality checks
+# --------------------------------------------------------------------------------------------
+RELATIVE_STDERR_FLOOR = 1e-3
+ABSOLUTE_STDERR_FLOOR = 1e-6  # times max |n|
+
+
+def effective_stderr(n: np.ndarray, stderr: np.ndarray) -> np.ndarray:
+    """The standard errors used as weights (the rule is in the module docstring)."""
+    n = np.asarray(n, dtype=float)
+    s = np.array(stderr, dtype=float)
+    scale = float(np.max(np.abs(n))) if n.size else 0.0
+    valid = np.isfinite(s) & (s > 0.0)
+    if np.any(~valid) and np.any(valid):
+        rel = valid & (n > 0.0)
+        r_med = float(np.median(s[rel] / n[rel])) if np.any(rel) else 0.0
+        s[~valid] = np.maximum(r_med * np.abs(n[~valid]), float(np.min(s[valid])))
+    elif not np.any(valid):
+        s[:] = 0.0
+    floor = np.maximum(RELATIVE_STDERR_FLOOR * np.abs(n), ABSOLUTE_STDERR_FLOOR * scale)
+    s = np.maximum(s, floor)
+    if np.any(s <= 0.0):  # only when n == 0 everywhere and no error is given
+        s = np.where(s > 0.0, s, np.finfo(float).tiny)
+    return s

@@ -12,7 +12,7 @@ import numpy as np
 
 from gcmc import __version__
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
-from gcmc.pipeline.tasks import BRANCHES, BuildPlan, load_task, task_path
+from gcmc.pipeline.tasks import BRANCHES, BuildPlan, Task, load_task, task_path
 
 
 @dataclass
@@ -37,14 +37,50 @@ def _library_versions() -> dict[str, str]:
     return out
 
 
-def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[FitSummary]]:
-    """Collect a plan's task files into a KernelData: points, fits, dense table, provenance."""
+@dataclass
+class Layout:
+    """Which task files make a kernel: one ladder task per (temperature, width), widths
+    sorted, and the point reruns that replace single points of them.
+
+    ``overrides`` maps (t, j, branch, k) to the rerun task whose result replaces point k of
+    branch ``branch`` (0 adsorption, 1 desorption) of ladder ``ladders[t][j]``."""
+
+    widths_H_nm: tuple[float, ...]
+    ladders: list[list[Task]]
+    overrides: dict[tuple[int, int, int, int], Task]
+
+    def tasks(self) -> list[Task]:
+        """Every task file the kernel is assembled from."""
+        return [t for row in self.ladders for t in row] + list(self.overrides.values())
+
+
+def grid_layout(plan: BuildPlan) -> Layout:
+    """The layout of the config's own grid (no refinement)."""
+    nt, nw = len(plan.temperatures), len(plan.config.widths_H_nm)
+    by = {(t.t_index, t.w_index): t for t in plan.tasks if not t.is_rerun and t.h_code < 0}
+    return Layout(
+        widths_H_nm=tuple(float(h) for h in plan.config.widths_H_nm),
+        ladders=[[by[(ti, wi)] for wi in range(nw)] for ti in range(nt)],
+        overrides={},
+    )
+
+
+def assemble_kernel(
+    plan: BuildPlan,
+    version: int,
+    layout: Layout | None = None,
+    extra_provenance: dict | None = None,
+) -> tuple[KernelData, list[FitSummary]]:
+    """The kernel from the task files of ``layout`` (default: the config's grid), with fits,
+    dense table and provenance (``extra_provenance`` is merged into it)."""
     from gcmc.kernel.forms import evaluate_fit
     from gcmc.pipeline.fits import fit_isotherm
     from gcmc.pipeline.heat import heat_kernel
 
     cfg = plan.config
-    nt, nw, n_p = len(plan.temperatures), len(cfg.widths_H_nm), len(cfg.pressures.values)
+    layout = layout or grid_layout(plan)
+    widths = np.array(layout.widths_H_nm, float)
+    nt, nw, n_p = len(plan.temperatures), widths.size, len(cfg.pressures.values)
     branches = BRANCHES if cfg.pressures.descending else BRANCHES[:1]
     points = {b: {f: np.full((nt, nw, n_p), np.nan) for f in POINT_FIELDS} for b in branches}
     flags = {b: np.full((nt, nw, n_p), "", dtype=object) for b in branches}
@@ -52,17 +88,24 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
     accessible = np.zeros((nt, nw), dtype=bool)
     seconds = np.zeros((nt, nw))
     seeds = np.zeros((nt, nw, 3), dtype=np.uint64)
-    for task in plan.tasks:
+    for ti, row in enumerate(layout.ladders):
+        for wi, task in enumerate(row):
+            arrays, meta = load_task(task_path(plan, task))
+            for b in branches:
+                for f in POINT_FIELDS:
+                    points[b][f][ti, wi] = arrays[f"{b}/{f}"]
+                flags[b][ti, wi] = meta["flags"][b]
+            henry[ti, wi] = float(arrays["henry_per_nm3_per_pa"])
+            accessible[ti, wi] = bool(arrays["accessible"])
+            seconds[ti, wi] = float(arrays["seconds"])
+            seeds[ti, wi] = (cfg.seed, *task.spawn_key())
+    for (ti, wi, bi, k), task in sorted(layout.overrides.items()):
         arrays, meta = load_task(task_path(plan, task))
-        ti, wi = task.t_index, task.w_index
-        for b in branches:
-            for f in POINT_FIELDS:
-                points[b][f][ti, wi] = arrays[f"{b}/{f}"]
-            flags[b][ti, wi] = meta["flags"][b]
-        henry[ti, wi] = float(arrays["henry_per_nm3_per_pa"])
-        accessible[ti, wi] = bool(arrays["accessible"])
-        seconds[ti, wi] = float(arrays["seconds"])
-        seeds[ti, wi] = (cfg.seed, ti, wi)
+        b = BRANCHES[bi]
+        for f in POINT_FIELDS:
+            points[b][f][ti, wi, k] = float(arrays[f"point/{f}"])
+        flags[b][ti, wi, k] = meta["flags"]
+        seconds[ti, wi] += float(arrays["seconds"])
 
     for b in branches:
         points[b]["converged"] = points[b]["converged"] == 1.0
@@ -114,6 +157,9 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
         "below_range": "Henry law with the exact Henry constant: n = K_H p exp(c p), c set "
         "for continuity at the lowest simulated pressure",
     }
+    if cfg.target is not None:
+        provenance["target"] = cfg.target.to_dict()
+    provenance.update(extra_provenance or {})
     sf = cfg.probe
     data = KernelData(
         name=cfg.name,
@@ -129,8 +175,8 @@ def assemble_kernel(plan: BuildPlan, version: int) -> tuple[KernelData, list[Fit
         pore_volume_convention="A * w (w = H - sigma_ss)",
         sampler="gcmc-ladder",
         temperatures_K=np.array(cfg.temperatures_K, float),
-        widths_H_nm=np.array(cfg.widths_H_nm, float),
-        widths_w_nm=np.array(cfg.widths_H_nm, float) - cfg.solid.sigma_nm,
+        widths_H_nm=widths,
+        widths_w_nm=widths - cfg.solid.sigma_nm,
         pressures_Pa=np.array([tp.pressures_Pa for tp in plan.temperatures]),
         relative_pressures=np.array([tp.relative_pressures for tp in plan.temperatures]),
         saturation_pressures_Pa=np.array([tp.saturation_pressure_Pa for tp in plan.temperatures]),

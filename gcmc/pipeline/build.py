@@ -56,6 +56,11 @@ class BuildResult:
         Local worker processes (1 under MPI: one per rank).
     ranks : int
         MPI ranks (1 without MPI).
+    refinement : dict or None
+        What the refinement rounds did (``written`` with a ``[target]`` that refines): rounds,
+        widths added where and why, points rerun with what, what still fails and why, the
+        CPU seconds spent and the check's verdict at the end; also in the kernel's
+        provenance under ``refinement``.
     """
 
     status: str
@@ -70,6 +75,7 @@ class BuildResult:
     wall_seconds: float = 0.0
     workers: int = 1
     ranks: int = 1
+    refinement: dict | None = None
 
     @property
     def ok(self) -> bool:
@@ -209,16 +215,30 @@ def _run_plan(result: BuildResult, pool, rank: int, size: int, progress: bool) -
                 result.report = run_tasks_mpi(plan, log, bar if rank == 0 else None)
             else:
                 result.report = run_tasks_local(plan, result.workers, log, bar, pool=pool)
+        if rank == 0:
+            result.missing = pending_tasks(plan)
+        layout, extra = None, None
+        if cfg.refining:
+            missing = _bcast(size, result.missing)
+            if not missing:
+                layout, extra = _refine_rounds(result, pool, rank, size, progress, log)
         if rank != 0:
             result.status = "worker"
             return
-        result.missing = pending_tasks(plan)
         if result.missing:
             keys = ", ".join(t.key for t in result.missing)
             log.write(f"build incomplete: {len(result.missing)} task(s) missing: {keys}")
             result.status = "incomplete"
             return
-        result.data, result.fits = assemble_kernel(plan, result.version)
+        if layout is None:
+            from gcmc.pipeline.assemble import grid_layout
+
+            layout = grid_layout(plan)
+        _repair(result, pool, rank, 1, progress, log, layout.tasks())
+        result.data, result.fits = assemble_kernel(plan, result.version, layout, extra)
+        if extra is not None:
+            extra["refinement"]["check"] = _final_check(result.data, cfg)
+            result.refinement = extra["refinement"]
         result.path = write_kernel(result.data, cfg.output)
         log.write(f"kernel written: {result.path}")
         result.status = "written"
@@ -237,5 +257,202 @@ def failure_line(plan: BuildPlan, task: Task) -> str:
         return json.loads(failure_path(plan, task).read_text())["error"]
     except (OSError, ValueError, KeyError):
         t = plan.temperatures[task.t_index].temperature_K
-        h = plan.config.widths_H_nm[task.w_index]
+        h = task.width_H_nm(plan.config)
         return f"task {task.key} (T = {t:g} K, H = {h:g} nm): not run"
+
+
+# --- refinement rounds ---------------------------------------------------------------------
+
+
+def _bcast(size: int, value):  # noqa: ANN001, ANN202
+    """Rank 0's value on every rank (the value itself without MPI)."""
+    if size == 1:
+        return value
+    from mpi4py import MPI
+
+    return MPI.COMM_WORLD.bcast(value, root=0)
+
+
+def _run_round(
+    result: BuildResult, pool, rank: int, size: int, progress: bool, log, tasks, label: str
+):  # noqa: ANN001, ANN202, E501
+    """Run ``tasks`` (rank 0's list) on every worker or rank; rank 0 returns the missing ones."""
+    from dataclasses import replace
+
+    from gcmc.pipeline.runner import progress_bar, run_tasks_local, run_tasks_mpi
+    from gcmc.pipeline.tasks import pending_tasks
+
+    tasks = _bcast(size, tasks)
+    if not tasks:
+        return []
+    sub = replace(result.plan, tasks=list(tasks))
+    per = len(result.config.pressures.values) * (2 if result.config.pressures.descending else 1)
+    total = sum(1 if t.is_rerun else per for t in tasks)
+    if rank == 0:
+        log.write(f"{label}: {len(tasks)} task(s)")
+    bar = progress_bar(total, 0, enabled=(rank == 0 and progress))
+    bar.set_description(label)
+    with bar:
+        if size > 1:
+            run_tasks_mpi(sub, log, bar if rank == 0 else None)
+        else:
+            run_tasks_local(sub, result.workers, log, bar, pool=pool)
+    return pending_tasks(sub) if rank == 0 else []
+
+
+def _repair(result: BuildResult, pool, rank: int, size: int, progress: bool, log, tasks) -> None:  # noqa: ANN001, E501
+    """Verify the task files of ``tasks`` (checksums); recompute damaged ones now. Their
+    random streams depend only on their coordinates, so the recomputed file is the same."""
+    from gcmc.pipeline.tasks import verify_tasks
+
+    for _ in range(2):
+        damaged = verify_tasks(result.plan, tasks) if rank == 0 else None
+        if rank == 0 and damaged:
+            log.write(
+                "damaged or missing task file(s) recomputed: " + ", ".join(t.key for t in damaged)
+            )
+        if not _bcast(size, bool(damaged)):
+            return
+        missing = _run_round(result, pool, rank, size, progress, log, damaged, "repair")
+        if rank == 0 and missing:
+            result.missing = list(missing)
+        if _bcast(size, bool(result.missing)):  # every rank stops together
+            return
+
+
+def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bool, log):  # noqa: ANN001, ANN202
+    """Refinement rounds after the first pass (module gcmc.pipeline.refine); rank 0 plans
+    each round from the task files on disk, every rank runs it. Returns (layout, provenance
+    additions) on rank 0."""
+    from gcmc.pipeline.assemble import assemble_kernel, grid_layout
+    from gcmc.pipeline.escalation import step
+    from gcmc.pipeline.refine import apply_round, plan_round, round_tasks
+    from gcmc.pipeline.tasks import load_task, task_cpu_seconds, task_path
+
+    cfg, plan = result.config, result.plan
+    target = cfg.target
+    nt = len(plan.temperatures)
+    layout = grid_layout(plan)
+    history = list(plan.tasks)  # every task of every round, in order
+    rounds: list[dict] = []
+    stop, open_lines = "", []
+    costs: dict[str, float] = {}
+    ratio: dict[str, float] = {}  # CPU / wall seconds of each task file
+    r = 0
+    while True:
+        r += 1
+        _repair(result, pool, rank, size, progress, log, history)
+        if _bcast(size, bool(result.missing)):
+            return layout, None
+        todo = None
+        if rank == 0:
+            for t in history:
+                if t.key not in costs:
+                    arrays, _ = load_task(task_path(plan, t))
+                    costs[t.key] = task_cpu_seconds(arrays)
+                    wall = float(arrays["seconds"])
+                    ratio[t.key] = min(costs[t.key] / wall, 1.0) if wall > 0 else 1.0
+            spent = float(sum(costs[t.key] for t in history))
+            data, _ = assemble_kernel(plan, result.version, layout)
+            index = {lad.width_key: j for j, lad in enumerate(layout.ladders[0])}
+            point_spent: dict = {}
+            for t in history:
+                if t.is_rerun:
+                    key = (t.t_index, index[t.ladder().width_key], t.branch, t.point)
+                    point_spent[key] = point_spent.get(key, 0.0) + costs[t.key]
+            rp = plan_round(data, layout, target, costs, spent, point_spent, ratio)
+            open_lines = [f.line() for f in rp.findings if f.action not in ("rerun", "widths")]
+            open_lines += [f"not run (budget): {c}" for c in rp.cut_by_budget]
+            if r > target.max_rounds:
+                stop = f"max_rounds = {target.max_rounds} reached"
+                open_lines = [f.open_line("max_rounds") for f in rp.findings]
+            elif spent >= target.cpu_seconds:
+                stop = f"budget spent ({spent:.0f} of {target.cpu_seconds:.0f} CPU-s)"
+                open_lines = [f.open_line("budget") for f in rp.findings]
+            elif rp.empty:
+                if not rp.findings:
+                    stop = "target met"
+                elif rp.cut_by_budget:
+                    stop = (
+                        f"budget: the next tasks do not fit ({spent:.0f} of "
+                        f"{target.cpu_seconds:.0f} CPU-s spent)"
+                    )
+                else:
+                    stop = "nothing left the build can act on"
+            else:
+                todo = round_tasks(rp, nt)
+                rounds.append(
+                    {
+                        "round": r,
+                        "cpu_seconds_before": spent,
+                        "estimated_cpu_seconds": rp.estimated_cpu_seconds,
+                        "widths_added": [{"H_nm": h, "why": why} for h, why in rp.widths],
+                        "reruns": [
+                            {
+                                "task": t.key,
+                                "method": step(t.step).method,
+                                "effort": step(t.step).effort,
+                                "step": t.step,
+                                "why": why,
+                            }
+                            for t, _, why in rp.reruns
+                        ],
+                        "cut_by_budget": list(rp.cut_by_budget),
+                    }
+                )
+                log.write(
+                    f"round {r}: {len(rp.widths)} width(s) added, {len(rp.reruns)} point(s) "
+                    f"rerun ({spent:.0f} CPU-s spent so far)"
+                )
+        todo = _bcast(size, todo)
+        if todo is None:
+            break
+        missing = _run_round(result, pool, rank, size, progress, log, todo, f"round {r}")
+        if rank == 0 and missing:
+            result.missing = list(missing)
+        if _bcast(size, bool(result.missing)):
+            return layout, None
+        if rank == 0:
+            history += todo
+            layout = apply_round(layout, rp, nt)
+    if rank != 0:
+        return None, None
+    spent = float(sum(costs[t.key] for t in history))
+    log.write(f"refinement stopped: {stop}")
+    refinement = {
+        "rounds": rounds,
+        "stop": stop,
+        "still_failing": open_lines,
+        "widths_initial_H_nm": list(cfg.widths_H_nm),
+        "widths_final_H_nm": list(layout.widths_H_nm),
+        "cpu_seconds": spent,
+        "budget_cpu_seconds": target.cpu_seconds,
+        "points_rerun": {
+            f"{t.width_key} {('adsorption', 'desorption')[b]} p{k}": {
+                "H_nm": layout.widths_H_nm[j],
+                "step": t.step,
+                "method": step(t.step).method,
+                "effort": step(t.step).effort,
+            }
+            for (ti, j, b, k), t in sorted(layout.overrides.items())
+        },
+        "escalation": "point reruns: cold start at the step's method and effort "
+        "(gcmc.pipeline.escalation.STEPS); every other point: the config's ladder",
+    }
+    return layout, {"refinement": refinement}
+
+
+def _final_check(data, cfg) -> dict:  # noqa: ANN001
+    """The quality check of the finished kernel against its target: verdict per criterion."""
+    from gcmc.quality.criteria import run_checks
+    from gcmc.quality.target import check_settings
+
+    try:
+        rep = run_checks(data, check_settings(cfg.target))
+    except InputError as exc:  # a kernel the check cannot judge (e.g. no resolved width)
+        return {"verdict": "not judged", "criteria": {}, "measured": {"error": str(exc)}}
+    return {
+        "verdict": rep.verdict,
+        "criteria": {c.key: c.verdict for c in rep.criteria},
+        "measured": {c.key: c.measured for c in rep.criteria if c.verdict in ("warn", "fail")},
+    }

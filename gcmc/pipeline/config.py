@@ -33,6 +33,7 @@ from gcmc.physics.potentials import (
     default_cutoff_nm,
     lateral_box_nm,
 )
+from gcmc.quality.target import QualityTarget
 from gcmc.sampling.point import SamplingSettings
 
 KNOWN_SECTIONS = {
@@ -47,6 +48,7 @@ KNOWN_SECTIONS = {
     "sampling",
     "fit",
     "seed",
+    "target",
 }
 
 
@@ -92,11 +94,32 @@ class RunConfig:
     #: "square" (box_nm x box_nm) or "hexagonal" (box_nm x box_y_nm, whole close-packed rows)
     lateral_box: str = "square"
     box_y_nm: float = 0.0
+    #: the [target] table (None: no target; the build runs exactly the config's grid)
+    target: QualityTarget | None = None
+
+    @property
+    def refining(self) -> bool:
+        """True when the build refines its kernel towards the target."""
+        return self.target is not None and self.target.refine and self.target.max_rounds > 0
 
     @property
     def config_hash(self) -> str:
         """Hash of everything that changes the kernel's data (not the output folder)."""
-        canon = {
+        canon = self._canon()
+        if self.target is not None:
+            canon["target"] = self.target.to_dict()
+        blob = json.dumps(canon, sort_keys=True, default=str).encode()
+        return hashlib.sha256(blob).hexdigest()
+
+    @property
+    def task_hash(self) -> str:
+        """Hash of everything that changes a task's result: the config less its target (a
+        task file does not depend on why it was asked for, so a changed target reuses them)."""
+        blob = json.dumps(self._canon(), sort_keys=True, default=str).encode()
+        return hashlib.sha256(blob).hexdigest()
+
+    def _canon(self) -> dict[str, Any]:
+        return {
             "probe": self.probe.to_dict() | {"sources": None},
             "solid": self.solid.to_dict(),
             "cutoff_nm": self.cutoff_nm,
@@ -120,8 +143,6 @@ class RunConfig:
             "seed": self.seed,
             "name": self.name,
         }
-        blob = json.dumps(canon, sort_keys=True, default=str).encode()
-        return hashlib.sha256(blob).hexdigest()
 
 
 class _Fields:
@@ -466,6 +487,8 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise InputError(f"{p}: seed: expected a non-negative integer, got {seed!r}")
 
+    target = _target(f"{p}: target", data["target"]) if "target" in data else None
+
     return RunConfig(
         path=path,
         text=text,
@@ -484,4 +507,42 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         seed=seed,
         lateral_box=lateral,
         box_y_nm=box_y,
+        target=target,
     )
+
+
+def _target(where: str, table: Any) -> QualityTarget:
+    """The [target] table: the experiment, the tolerances and the budget."""
+    f = _Fields(where, table)
+    d = QualityTarget()
+    pressures = f.numbers("pressures_Pa")
+    p_range = f.numbers("p_range_Pa")
+    p_points = f.integer("p_points", 30, 2)
+    if pressures is not None and p_range is not None:
+        raise InputError(f"{where}: give at most one of pressures_Pa and p_range_Pa")
+    if p_range is not None:
+        if len(p_range) != 2 or not p_range[0] < p_range[1]:
+            raise InputError(f"{where}.p_range_Pa: expected [low, high] with low < high")
+        pressures = list(np.geomspace(p_range[0], p_range[1], int(p_points or 30)))
+    elif "p_points" in f.table:
+        raise InputError(f"{where}.p_points: needs p_range_Pa")
+    if pressures is not None:
+        _increasing(f"{where}.pressures_Pa", pressures)
+    max_rounds = f.integer("max_rounds", d.max_rounds, 0)
+    target = QualityTarget(
+        refine=f.boolean("refine", True),
+        noise_rel=f.number("noise_rel", d.noise_rel, positive=False),  # type: ignore[arg-type]
+        noise_abs_mmol_cm3=f.number(  # type: ignore[arg-type]
+            "noise_abs_mmol_cm3", d.noise_abs_mmol_cm3, positive=False
+        ),
+        pressures_Pa=None if pressures is None else tuple(float(x) for x in pressures),
+        target_rel_error=f.number("target_rel_error", d.target_rel_error),  # type: ignore[arg-type]
+        width_tolerance=f.number("width_tolerance", d.width_tolerance),  # type: ignore[arg-type]
+        cpu_hours=f.number("cpu_hours", d.cpu_hours),  # type: ignore[arg-type]
+        cpu_hours_per_point=f.number("cpu_hours_per_point", None),
+        min_spacing_nm=f.number("min_spacing_nm", d.min_spacing_nm),  # type: ignore[arg-type]
+        max_rounds=int(max_rounds if max_rounds is not None else d.max_rounds),
+    )
+    f.done()
+    target.validate(where)
+    return target

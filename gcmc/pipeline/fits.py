@@ -52,10 +52,18 @@ from scipy import optimize, stats
 from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
 from gcmc.kernel.data import FitRecord
-from gcmc.kernel.forms import DEFAULT_FORMS, FORMS, INTERPOLANT_FORM, ZERO_FORM, Form
 
-RELATIVE_STDERR_FLOOR = 1e-3
-ABSOLUTE_STDERR_FLOOR = 1e-6  # times max |n|
+# the standard-error rule lives beside the forms (the quality checks use it too)
+from gcmc.kernel.forms import (  # noqa: E402, F401 - re-exported: fits.effective_stderr
+    ABSOLUTE_STDERR_FLOOR,
+    DEFAULT_FORMS,
+    FORMS,
+    INTERPOLANT_FORM,
+    RELATIVE_STDERR_FLOOR,
+    ZERO_FORM,
+    Form,
+    effective_stderr,
+)
 
 # data-relative bounds for the scale parameters (generous; hitting one is reported)
 AMOUNT_RANGE = (1e-9, 1e4)  # times max n
@@ -112,25 +120,6 @@ def _check_data(
     if np.any(s[np.isfinite(s)] < 0.0):
         raise InputError("stderr: standard errors must not be negative")
     return p, n, s
-
-
-def effective_stderr(n: np.ndarray, stderr: np.ndarray) -> np.ndarray:
-    """The standard errors used as weights (the rule is in the module docstring)."""
-    n = np.asarray(n, dtype=float)
-    s = np.array(stderr, dtype=float)
-    scale = float(np.max(np.abs(n))) if n.size else 0.0
-    valid = np.isfinite(s) & (s > 0.0)
-    if np.any(~valid) and np.any(valid):
-        rel = valid & (n > 0.0)
-        r_med = float(np.median(s[rel] / n[rel])) if np.any(rel) else 0.0
-        s[~valid] = np.maximum(r_med * np.abs(n[~valid]), float(np.min(s[valid])))
-    elif not np.any(valid):
-        s[:] = 0.0
-    floor = np.maximum(RELATIVE_STDERR_FLOOR * np.abs(n), ABSOLUTE_STDERR_FLOOR * scale)
-    s = np.maximum(s, floor)
-    if np.any(s <= 0.0):  # only when n == 0 everywhere and no error is given
-        s = np.where(s > 0.0, s, np.finfo(float).tiny)
-    return s
 
 
 # --------------------------------------------------------------------------------------------

@@ -185,7 +185,7 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None
         (report.done if status == "done" else report.failed).append(key)
         log.write(f"task {key} {status} in {seconds:.2f} s {msg}".rstrip())
         if bar is not None:
-            bar.update(per)
+            bar.update(1 if "_b" in key else per)  # a point rerun is one point
             if status != "done":
                 bar.write(msg)
 
@@ -201,13 +201,17 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None
 
         from gcmc.pipeline.tasks import _worker_run
 
-        if pool is None:
+        own = pool is None  # a pool handed in stays open for the caller's next round
+        if own:
             pool = start_local_pool(min(workers, len(todo)))
-        with pool:
-            futures = [pool.submit(_worker_run, plan, t.t_index, t.w_index) for t in todo]
+        try:
+            futures = [pool.submit(_worker_run, plan, t.key) for t in todo]
             for fut in as_completed(futures):
                 key, status, sec, msg = fut.result()
                 record(key, status, sec, msg)
+        finally:
+            if own:
+                pool.shutdown(wait=True, cancel_futures=True)
     report.seconds = time.perf_counter() - t0
     return report
 
@@ -220,8 +224,8 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:
     comm = MPI.COMM_WORLD
     rank = comm.Get_rank()
     todo = learned_order(plan, pending_tasks(plan)) if rank == 0 else None
-    keys = comm.bcast([(t.t_index, t.w_index) for t in todo] if rank == 0 else None, root=0)
-    by_key = {(t.t_index, t.w_index): t for t in plan.tasks}
+    keys = comm.bcast([t.key for t in todo] if rank == 0 else None, root=0)
+    by_key = {t.key: t for t in plan.tasks}
     order: list[Task] = [by_key[k] for k in keys]
     report = RunReport(skipped=len(plan.tasks) - len(order))
     import numpy as np
@@ -250,7 +254,7 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:
                         task_path(plan, t).exists() or failure_path(plan, t).exists()
                     ):
                         seen.add(t.key)
-                        bar.update(per)
+                        bar.update(1 if t.is_rerun else per)
                 stop.wait(0.5)
 
         watcher = threading.Thread(target=watch, daemon=True)

@@ -43,18 +43,66 @@ class TemperaturePlan:
     residual_enthalpy_K: np.ndarray
 
 
+#: added widths are coded as H in units of this (nm) in their task key and seed
+H_CODE_NM = 1e-5
+#: spawn-key offsets that keep added widths and point reruns apart from the config's grid
+ADDED_WIDTH_KEY = 10_000_000
+RERUN_KEY = 1_000_000
+
+
 @dataclass(frozen=True)
 class Task:
-    """One task: a pressure ladder at one temperature and one width."""
+    """One unit of work: the pressure ladder of one (temperature, width), or the rerun of one
+    point of such a ladder at an escalation step (:mod:`gcmc.pipeline.escalation`).
+
+    ``w_index`` indexes the config's widths; a width added by refinement has ``w_index = -1``
+    and ``h_code`` = H / H_CODE_NM. A point rerun has ``point >= 0`` (index on the pressure
+    axis), its ``branch`` (0 adsorption, 1 desorption) and ``step`` (1, 2, ...)."""
 
     t_index: int
     w_index: int
     estimated_cost: float
+    h_code: int = -1
+    point: int = -1
+    branch: int = 0
+    step: int = 0
+
+    @property
+    def width_key(self) -> str:
+        """The key of the (temperature, width) ladder this task belongs to."""
+        if self.h_code >= 0:
+            return f"t{self.t_index:03d}_h{self.h_code:07d}"
+        return f"t{self.t_index:03d}_w{self.w_index:03d}"
 
     @property
     def key(self) -> str:
-        """The task's name in file names and logs, ``t<T>_w<W>``."""
-        return f"t{self.t_index:03d}_w{self.w_index:03d}"
+        if self.point >= 0:
+            return f"{self.width_key}_b{self.branch}p{self.point:03d}s{self.step}"
+        return self.width_key
+
+    @property
+    def is_rerun(self) -> bool:
+        return self.point >= 0
+
+    def ladder(self) -> Task:
+        """The ladder task this task reruns a point of (itself for a ladder task)."""
+        return Task(self.t_index, self.w_index, 0.0, h_code=self.h_code)
+
+    def width_H_nm(self, cfg: RunConfig) -> float:
+        if self.h_code >= 0:
+            return round(self.h_code * H_CODE_NM, 10)
+        return float(cfg.widths_H_nm[self.w_index])
+
+    def spawn_key(self) -> tuple[int, ...]:
+        w = ADDED_WIDTH_KEY + self.h_code if self.h_code >= 0 else self.w_index
+        if self.point >= 0:
+            return (self.t_index, w, RERUN_KEY, self.branch, self.point, self.step)
+        return (self.t_index, w)
+
+
+def added_width_task(t_index: int, width_H_nm: float, cost: float = 0.0) -> Task:
+    """The ladder task of a width added by refinement (H rounded to H_CODE_NM)."""
+    return Task(t_index, -1, cost, h_code=int(round(width_H_nm / H_CODE_NM)))
 
 
 @dataclass(frozen=True)
@@ -125,7 +173,7 @@ def make_plan(cfg: RunConfig) -> BuildPlan:
             )
             tasks.append(Task(ti, wi, cost))
     tasks.sort(key=lambda k: (-k.estimated_cost, k.t_index, k.w_index))
-    task_dir = cfg.output / f"{cfg.name}.tasks" / cfg.config_hash[:16]
+    task_dir = cfg.output / f"{cfg.name}.tasks" / cfg.task_hash[:16]
     return BuildPlan(
         config=cfg,
         temperatures=temps,
@@ -136,19 +184,18 @@ def make_plan(cfg: RunConfig) -> BuildPlan:
 
 
 def task_seed(cfg: RunConfig, task: Task) -> np.random.SeedSequence:
-    """The random seed of a task: ``SeedSequence(seed, spawn_key=(t, w))``."""
-    return np.random.SeedSequence(entropy=cfg.seed, spawn_key=(task.t_index, task.w_index))
+    return np.random.SeedSequence(entropy=cfg.seed, spawn_key=task.spawn_key())
 
 
-def pore_model(cfg: RunConfig, w_index: int) -> PoreModel:
-    """The pore model of one kernel width."""
+def pore_model(cfg: RunConfig, w_index: int, width_H_nm: float | None = None) -> PoreModel:
+    """The slit pore of the config's width ``w_index`` (or of ``width_H_nm`` when given)."""
     return PoreModel(
         probe=cfg.probe,
         solid=cfg.solid,
         geometry=SLIT,
         cutoff_nm=cfg.cutoff_nm,
         box_nm=cfg.box_nm,
-        width_nm=cfg.widths_H_nm[w_index],
+        width_nm=cfg.widths_H_nm[w_index] if width_H_nm is None else width_H_nm,
         box_y_nm=cfg.box_y_nm,
         lateral_box=cfg.lateral_box,
     )
@@ -173,9 +220,13 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     from gcmc.sampling.point import ThermoState, simulate_point
 
     faults.check_task(task.key)  # the test seam (gcmc.pipeline.faults); nothing in real builds
+    if task.is_rerun:
+        from gcmc.pipeline.escalation import run_point_task
+
+        return run_point_task(plan, task)
     cfg = plan.config
     tp = plan.temperatures[task.t_index]
-    model = pore_model(cfg, task.w_index)
+    model = pore_model(cfg, task.w_index, task.width_H_nm(cfg))
     limit = pore_limit(model, tp.temperature_K)
     n_p = len(tp.pressures_Pa)
     arrays: dict[str, np.ndarray] = {}
@@ -183,6 +234,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     seeds = task_seed(cfg, task)
     point_seeds = seeds.spawn(2 * n_p)
     t_start = time.perf_counter()
+    c_start = time.process_time()
     branches = BRANCHES if cfg.pressures.descending else BRANCHES[:1]
     positions = None
     dmax = None
@@ -238,6 +290,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
                 arrays[f"{branch}/{name}"][k] = val
             flags[branch][k] = "; ".join(r.flags)
     seconds = time.perf_counter() - t_start
+    cpu_seconds = time.process_time() - c_start
     meta = {
         "task": task.key,
         "t_index": task.t_index,
@@ -248,12 +301,18 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
         "host": socket.gethostname(),
         "seconds": seconds,
         "seed_entropy": int(cfg.seed),
-        "spawn_key": [task.t_index, task.w_index],
+        "spawn_key": list(task.spawn_key()),
     }
     arrays["henry_per_nm3_per_pa"] = np.array(limit.henry_per_nm3_per_pa)
     arrays["accessible"] = np.array(limit.accessible)
     arrays["seconds"] = np.array(seconds)
+    arrays["cpu_seconds"] = np.array(cpu_seconds)
     arrays["meta_json"] = np.frombuffer(json.dumps(meta, sort_keys=True).encode(), dtype=np.uint8)
+    return finish_task(plan, task, arrays)
+
+
+def finish_task(plan: BuildPlan, task: Task, arrays: dict[str, np.ndarray]) -> Path:
+    """Write a task's arrays atomically (with their checksum) and clear its failure record."""
     path = task_path(plan, task)
     _atomic_savez(path, arrays)
     fail = failure_path(plan, task)
@@ -262,18 +321,73 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     return path
 
 
+CHECKSUM_KEY = "sha256"
+
+
+def _checksum(arrays: dict[str, np.ndarray]) -> np.ndarray:
+    """SHA-256 over every array's name, dtype, shape and bytes, in name order."""
+    import hashlib
+
+    h = hashlib.sha256()
+    for name in sorted(k for k in arrays if k != CHECKSUM_KEY):
+        a = np.ascontiguousarray(arrays[name])
+        h.update(f"{name}|{a.dtype.str}|{a.shape}|".encode())
+        h.update(a.tobytes())
+    return np.frombuffer(h.digest(), dtype=np.uint8)
+
+
+class DamagedTask(ValueError):
+    """A task file that cannot be read or whose checksum does not match."""
+
+
 def _atomic_savez(path: Path, arrays: dict[str, np.ndarray]) -> None:
+    arrays = dict(arrays)
+    arrays[CHECKSUM_KEY] = _checksum(arrays)
     path.parent.mkdir(parents=True, exist_ok=True)
     with atomic_write(path, "wb") as fh:
         np.savez(fh, **arrays)
 
 
 def load_task(path: Path) -> tuple[dict[str, np.ndarray], dict]:
-    """A task file's arrays and its metadata dict."""
-    with np.load(path) as z:
-        arrays = {k: z[k] for k in z.files}
-    meta = json.loads(arrays.pop("meta_json").tobytes().decode())
+    """A task file's arrays and metadata; DamagedTask when it cannot be read or its checksum
+    (when it has one) does not match."""
+    try:
+        with np.load(path) as z:
+            arrays = {k: z[k] for k in z.files}
+    except FileNotFoundError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - zip, CRC, pickle or numpy format errors
+        raise DamagedTask(f"{path}: unreadable task file ({type(exc).__name__}: {exc})") from None
+    stored = arrays.pop(CHECKSUM_KEY, None)
+    if stored is not None and not np.array_equal(stored, _checksum(arrays)):
+        raise DamagedTask(f"{path}: checksum does not match its contents")
+    try:
+        meta = json.loads(arrays.pop("meta_json").tobytes().decode())
+    except (KeyError, ValueError) as exc:
+        raise DamagedTask(f"{path}: no readable metadata ({exc})") from None
     return arrays, meta
+
+
+def verify_tasks(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
+    """The tasks whose files are damaged (removed, to be recomputed) or gone."""
+    bad = []
+    for t in tasks:
+        p = task_path(plan, t)
+        if not p.exists():
+            bad.append(t)
+            continue
+        try:
+            load_task(p)
+        except DamagedTask:
+            p.unlink(missing_ok=True)
+            bad.append(t)
+    return bad
+
+
+def task_cpu_seconds(arrays: dict[str, np.ndarray]) -> float:
+    """CPU seconds a task file records (its wall seconds for files from before CPU time was
+    recorded)."""
+    return float(arrays["cpu_seconds"] if "cpu_seconds" in arrays else arrays["seconds"])
 
 
 def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
@@ -286,7 +400,7 @@ def run_task_safely(plan: BuildPlan, task: Task) -> tuple[str, float, str]:
         tp = plan.temperatures[task.t_index]
         msg = (
             f"task {task.key} (T = {tp.temperature_K:g} K, H = "
-            f"{plan.config.widths_H_nm[task.w_index]:g} nm) failed: "
+            f"{task.width_H_nm(plan.config):g} nm) failed: "
             f"{type(exc).__name__}: {exc}"
         )
         record = {"task": task.key, "error": msg, "traceback": traceback.format_exc()}
@@ -313,10 +427,10 @@ def _worker_ping() -> int:
     return os.getpid()
 
 
-def _worker_run(plan: BuildPlan, t_index: int, w_index: int) -> tuple[str, str, float, str]:
+def _worker_run(plan: BuildPlan, key: str) -> tuple[str, str, float, str]:
     # The parent's plan itself (pickled, a few kB, with every task): a worker does not re-read
     # the config (which may have been edited since the build started) nor redo the EOS states.
-    task = next(t for t in plan.tasks if t.t_index == t_index and t.w_index == w_index)
+    task = next(t for t in plan.tasks if t.key == key)
     status, seconds, msg = run_task_safely(plan, task)
     return task.key, status, seconds, msg
 
@@ -337,8 +451,8 @@ def learned_order(plan: BuildPlan, tasks: list[Task]) -> list[Task]:
             try:
                 arrays, _ = load_task(p)
                 measured[(t.t_index, t.w_index)] = float(arrays["seconds"])
-            except Exception:  # a damaged file is simply re-run
-                p.unlink(missing_ok=True)
+            except Exception:  # noqa: BLE001 - a damaged file is recomputed after the round
+                continue
     if not measured:
         return tasks
     estimate = {(t.t_index, t.w_index): t.estimated_cost for t in plan.tasks}

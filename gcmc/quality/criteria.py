@@ -9,8 +9,8 @@ reported in mmol/cm^3 (1 nm^-3 = 1/0.602214076 mmol/cm^3). Widths are on the ker
 (the width presented to inversions) with H alongside.
 
 Errors. Comparisons use the points' standard errors after the rule of the fitter
-(:func:`gcmc.pipeline.fits.effective_stderr`: a missing error is replaced by a typical one and every
-error is floored at 0.1 % of the loading); "combined sigma" of two independent points is
+(:func:`gcmc.kernel.forms.effective_stderr`: a missing error is replaced by a typical one and
+every error is floored at 0.1 % of the loading); "combined sigma" of two independent points is
 sqrt(s1^2 + s2^2).
 
 The criteria, in the order of the report:
@@ -90,9 +90,9 @@ from gcmc.errors import InputError
 from gcmc.kernel import flags as fl
 from gcmc.kernel import forms as _forms
 from gcmc.kernel.data import KernelData
+from gcmc.kernel.forms import effective_stderr
 from gcmc.kernel.reader import Kernel
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
-from gcmc.pipeline.fits import effective_stderr
 from gcmc.quality.inversion import METHODS, invert, single_threaded_blas, trapezoid_weights
 from gcmc.quality.resolution import (
     DEFAULT_CHI2_THRESHOLD,

@@ -1,0 +1,306 @@
+"""The refinement planner (gcmc.pipeline.refine), the escalation steps
+(gcmc.pipeline.escalation), the [target] table (gcmc.quality.target, gcmc.pipeline.config),
+task keys and seeds of added widths and reruns, and checksummed task files (gcmc.pipeline.tasks).
+
+No simulation here: the kernels are the synthetic, invented test kernels of test_check.py
+(analytic two-site Langmuir isotherms whose constants vary smoothly with the width, I.
+Langmuir, J. Am. Chem. Soc. 40 (1918) 1361), some with a sharp step in width added (a layering
+transition's signature). The interpolation-error estimate is the check's own (the cubic through
+the four nearest widths against the chord): linear interpolation errs by h^2 f''/8 in the
+middle of an interval of length h (Taylor's theorem; common practice), which is what places
+and counts the new widths.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from test_check import GOOD_WIDTHS, SIGMA_SS, make_kernel, two_site
+
+from gcmc.errors import InputError
+from gcmc.pipeline.assemble import Layout
+from gcmc.pipeline.escalation import STEPS, first_step_with_effort, step, step_settings
+from gcmc.pipeline.refine import gap_findings, place_widths, plan_round
+from gcmc.pipeline.tasks import (
+    DamagedTask,
+    Task,
+    _atomic_savez,
+    added_width_task,
+    load_task,
+)
+from gcmc.quality.target import QualityTarget
+from gcmc.sampling.point import SamplingSettings
+
+WIDTHS = GOOD_WIDTHS[1:]  # accessible, log-spaced 0.35 - 2.7 nm (w axis)
+STEP_W = float(WIDTHS[17] + 0.3 * (WIDTHS[18] - WIDTHS[17]))  # between nodes 17 and 18
+STEP_SCALE = 0.004  # nm: much sharper than the grid spacing (~0.06 nm there)
+
+
+def stepped(w: float) -> np.ndarray:
+    """two_site with the wall layer's capacity doubled above STEP_W (a sharp sigmoid)."""
+    par = two_site(w).copy()
+    par[0] *= 1.0 + 1.0 / (1.0 + math.exp(-(w - STEP_W) / STEP_SCALE))
+    return par
+
+
+def kernel(params=two_site, widths=WIDTHS):  # noqa: ANN001, ANN201
+    return make_kernel(widths, params=params, inaccessible=(), noise=False)
+
+
+def layout_for(data, overrides=None) -> Layout:  # noqa: ANN001
+    ladders = [[Task(0, j, 1.0) for j in range(len(data.widths_H_nm))]]
+    return Layout(tuple(float(h) for h in data.widths_H_nm), ladders, overrides or {})
+
+
+def costs_for(layout: Layout, seconds: float = 10.0) -> dict[str, float]:
+    return {t.key: seconds for row in layout.ladders for t in row}
+
+
+TARGET = QualityTarget(min_spacing_nm=0.005, cpu_hours=1.0)
+
+
+# --- widths ----------------------------------------------------------------------------------
+
+
+def test_smooth_kernel_needs_no_new_widths() -> None:
+    data = kernel()
+    assert gap_findings(data, TARGET, [0]) == []
+    rp = plan_round(data, layout_for(data), TARGET, costs_for(layout_for(data)), 0.0, {})
+    assert rp.widths == [] and rp.reruns == []
+
+
+def test_sharp_step_gets_widths_there_and_nowhere_else() -> None:
+    data = kernel(stepped)
+    found = gap_findings(data, TARGET, [0])
+    assert found, "the step must be seen as an interpolation error"
+    new = sorted(h for _, hs, _ in found for h in hs)
+    # the cubic through four neighbours spans the step from the three intervals around it only
+    lo, hi = WIDTHS[16] + SIGMA_SS, WIDTHS[19] + SIGMA_SS
+    assert all(lo <= h <= hi for h in new), (new, lo, hi)
+    # (the interval holding the step itself is split in a later round, once its neighbours
+    # are resolved: test_rounds_on_the_analytic_kernel_resolve_the_step_locally)
+    # the planner's round holds these widths, and those beside the widths that are outliers
+    # at several pressures (structure in width), all beside the step
+    lay = layout_for(data)
+    rp = plan_round(data, lay, TARGET, costs_for(lay), 0.0, {})
+    planned = sorted(h for h, _ in rp.widths)
+    assert set(new) <= set(planned) and all(lo <= h <= hi for h in planned), planned
+    assert all(("gap" in why) or ("outlier" in why) for _, why in rp.widths)
+    assert not rp.reruns, "outliers at several pressures of a width are not rerun"
+
+
+def test_rounds_on_the_analytic_kernel_resolve_the_step_locally() -> None:
+    """Plan, "simulate" the new widths exactly, plan again: the rounds end with every interval
+    within tolerance or at the minimum spacing, and every width they added lies beside the
+    step, on both sides of it. (The interval holding the step may stay unsplit: the check's
+    estimate, a cubic through four neighbours, is nearly blind to a step midway between two
+    widths once its neighbours are close; the planner judges by the check's own estimate.)"""
+    target = dataclasses.replace(TARGET, min_spacing_nm=0.002)
+    widths = list(WIDTHS)
+    for _ in range(12):
+        data = kernel(stepped, np.array(widths))
+        lay = layout_for(data)
+        rp = plan_round(data, lay, target, costs_for(lay), 0.0, {})
+        if not rp.widths:  # (outliers beside the step ask for reruns: not simulated here)
+            break
+        widths = sorted(set(widths) | {round(h - SIGMA_SS, 10) for h, _ in rp.widths})
+    else:
+        raise AssertionError("rounds did not end")
+    added = sorted(set(widths) - set(WIDTHS))
+    assert added and all(WIDTHS[15] < w < WIDTHS[20] for w in added), added
+    assert any(w < STEP_W for w in added) and any(w > STEP_W for w in added)
+    assert all(f.action == "unresolvable" for f in rp.findings if f.kind == "gap")
+
+
+def test_new_widths_follow_the_curvature() -> None:
+    """Density ~ sqrt|P''|: for P = (w - a)^3 on [a, b] the second derivative grows linearly
+    from a, so the parts shrink towards b (equal error per part, h^2 P'' = const)."""
+    w = np.array([0.0, 1.0, 2.0, 3.0])
+    n = w**3
+    new = place_widths(w, n, 1.0, 2.0, 4, offset=0.0)
+    gaps = np.diff([1.0, *new, 2.0])
+    assert np.all(np.diff(gaps) < 0), gaps
+
+
+def test_interval_at_min_spacing_is_unresolvable() -> None:
+    data = kernel(stepped)
+    coarse = dataclasses.replace(TARGET, min_spacing_nm=1.0)
+    found = gap_findings(data, coarse, [0])
+    assert found and all(f.action == "unresolvable" and not hs for f, hs, _ in found)
+    lay = layout_for(data)
+    rp = plan_round(data, lay, coarse, costs_for(lay), 0.0, {})
+    assert not rp.widths and any("minimum" in f.detail for f in rp.open_findings)
+
+
+# --- points ----------------------------------------------------------------------------------
+
+
+def unconverged(data, j: int, k: int):  # noqa: ANN001, ANN201
+    pts = {b: {f: a.copy() for f, a in d.items()} for b, d in data.points.items()}
+    pts["adsorption"]["converged"][0, j, k] = False
+    flags = {b: a.copy() for b, a in data.flags.items()}
+    flags["adsorption"][0, j, k] = "drift[0]: first vs second half z = 5.0"
+    return dataclasses.replace(data, points=pts, flags=flags)
+
+
+def test_unconverged_point_escalates_step_by_step() -> None:
+    data = unconverged(kernel(), 10, 5)
+    lay = layout_for(data)
+    rp = plan_round(data, lay, TARGET, costs_for(lay), 0.0, {})
+    assert [(t.point, t.step) for t, _, _ in rp.reruns] == [(5, 1)]
+    task, key, _ = rp.reruns[0]
+    assert key == (0, 10, 0, 5) and task.key == "t000_w010_b0p005s1"
+    # after step 1 the same failure asks for step 2
+    lay2 = dataclasses.replace(lay, overrides={key: task})
+    rp2 = plan_round(data, lay2, TARGET, costs_for(lay), 0.0, {})
+    assert [t.step for t, _, _ in rp2.reruns] == [2]
+
+
+def test_point_that_cannot_converge_is_reported_not_rerun() -> None:
+    data = unconverged(kernel(), 10, 5)
+    last = Task(0, 10, 1.0, point=5, step=len(STEPS))
+    lay = layout_for(data, {(0, 10, 0, 5): last})
+    rp = plan_round(data, lay, TARGET, costs_for(lay), 0.0, {})
+    assert rp.reruns == []
+    (f,) = [f for f in rp.findings if f.kind == "unconverged"]
+    assert f.action == "given_up" and "last escalation step" in f.detail
+
+
+def test_per_point_budget_stops_escalation() -> None:
+    data = unconverged(kernel(), 10, 5)
+    lay = layout_for(data)
+    tight = dataclasses.replace(TARGET, cpu_hours_per_point=1e-6)
+    rp = plan_round(data, lay, tight, costs_for(lay, 100.0), 0.0, {})
+    assert rp.reruns == []
+    assert any(f.action == "given_up" and "per-point budget" in f.detail for f in rp.findings)
+
+
+def test_budget_cuts_the_round() -> None:
+    data = unconverged(kernel(stepped), 10, 5)
+    lay = layout_for(data)
+    spent = TARGET.cpu_seconds - 1.0  # one CPU second left: nothing fits
+    rp = plan_round(data, lay, TARGET, costs_for(lay), spent, {})
+    assert rp.empty and rp.cut_by_budget
+    assert any(f.action == "budget" for f in rp.findings)
+
+
+def test_error_target_asks_for_enough_effort() -> None:
+    """A relative error r above the target e needs (r/e)^2 times the moves (error ~ 1/sqrt
+    of the samples: common practice); the planner picks the first step with that effort."""
+    data = kernel()
+    pts = {b: {f: a.copy() for f, a in d.items()} for b, d in data.points.items()}
+    n = pts["adsorption"]["density_per_nm3"][0, 12, 8]
+    pts["adsorption"]["density_per_nm3_stderr"][0, 12, 8] = 0.03 * n  # 1.5 x the 0.02 target
+    data = dataclasses.replace(data, points=pts)
+    lay = layout_for(data)
+    rp = plan_round(data, lay, TARGET, costs_for(lay), 0.0, {})
+    (task,) = [t for t, _, _ in rp.reruns]
+    assert step(task.step).effort >= 1.5**2
+    assert first_step_with_effort(0, 2.9) == 3 - 1  # 4x is step 2
+
+
+def test_step_settings_escalate_moves_then_method() -> None:
+    base = SamplingSettings(equilibration_moves=1000, production_moves=10000, sample_every=10)
+    efforts = [step(i).effort for i in range(1, len(STEPS) + 1)]
+    assert efforts == sorted(efforts)
+    s1 = step_settings(base, 1)
+    assert s1.production_moves == 2 * base.production_moves and s1.insertion_trials == 0
+    s3 = step_settings(base, 3)
+    assert s3.insertion_trials == base.biased_trials
+    assert step_settings(base, len(STEPS)).replicas == 3
+
+
+# --- tasks -----------------------------------------------------------------------------------
+
+
+def test_added_width_and_rerun_tasks_have_their_own_keys_and_streams() -> None:
+    a = added_width_task(0, 0.7625)
+    assert a.key == "t000_h0076250" and a.w_index == -1
+    grid = Task(0, 3, 1.0)
+    rerun = Task(0, 3, 1.0, point=2, step=1)
+    keys = {t.spawn_key() for t in (a, grid, rerun, Task(0, 3, 1.0, point=2, step=2))}
+    assert len(keys) == 4
+    assert grid.spawn_key() == (0, 3)  # the config's grid keeps its seeds
+    assert rerun.ladder() == Task(0, 3, 0.0)
+
+
+def test_damaged_task_file_is_detected(tmp_path: Path) -> None:
+    p = tmp_path / "t000_w000.npz"
+    arrays = {"x": np.arange(5.0), "meta_json": np.frombuffer(b"{}", dtype=np.uint8)}
+    _atomic_savez(p, arrays)
+    got, meta = load_task(p)
+    assert np.array_equal(got["x"], arrays["x"]) and meta == {}
+    raw = bytearray(p.read_bytes())
+    raw[len(raw) // 2] ^= 0xFF
+    p.write_bytes(bytes(raw))
+    with pytest.raises(DamagedTask):
+        load_task(p)
+
+
+# --- the [target] table ------------------------------------------------------------------------
+
+BASE_CONFIG = """
+seed = 1
+[kernel]
+name = "t"
+[probe]
+library_name = "methane"
+[widths]
+H_nm = [0.8, 1.0]
+[temperatures]
+K = [298.15]
+[pressures]
+Pa = [1e4, 1e5]
+"""
+
+
+def load(text: str, tmp_path: Path):  # noqa: ANN201
+    from gcmc.pipeline.config import load_config
+
+    p = tmp_path / "c.toml"
+    p.write_text(BASE_CONFIG + text)
+    return load_config(p)
+
+
+def test_target_table_parses_and_travels(tmp_path: Path) -> None:
+    cfg = load(
+        "[target]\nnoise_rel = 0.02\np_range_Pa = [1e3, 1e6]\np_points = 5\ncpu_hours = 0.5\n",
+        tmp_path,
+    )
+    t = cfg.target
+    assert t is not None and t.noise_rel == 0.02 and len(t.pressures_Pa) == 5
+    assert t.cpu_hours_per_point == pytest.approx(0.5 / 20)
+    assert QualityTarget.from_dict(t.to_dict()) == t
+    assert cfg.refining
+    plain = load("", tmp_path)
+    assert plain.target is None and not plain.refining
+    # the target changes the kernel's hash, not the tasks' (their results do not depend on it)
+    assert cfg.config_hash != plain.config_hash and cfg.task_hash == plain.task_hash
+    off = load("[target]\nrefine = false\n", tmp_path)
+    assert not off.refining and off.target is not None
+
+
+@pytest.mark.parametrize(
+    "text, field",
+    [
+        ("noise_rel = -1", "target.noise_rel"),
+        ("width_tolerance = 2.0", "target.width_tolerance"),
+        ("cpu_hours = 0", "target.cpu_hours"),
+        ("cpu_hours = 1\ncpu_hours_per_point = 2", "target.cpu_hours_per_point"),
+        ("max_rounds = -1", "target.max_rounds"),
+        ("min_spacing_nm = 'x'", "target.min_spacing_nm"),
+        ("pressures_Pa = [1e5, 1e4]", "target.pressures_Pa"),
+        ("p_points = 4", "target.p_points"),
+        ("bogus = 1", "target.bogus"),
+        ("refine = 1", "target.refine"),
+    ],
+)
+def test_bad_target_field_is_one_line_naming_it(tmp_path: Path, text: str, field: str) -> None:
+    with pytest.raises(InputError) as exc:
+        load(f"[target]\n{text}\n", tmp_path)
+    msg = str(exc.value)
+    assert field in msg and "\n" not in msg, msg
