@@ -74,7 +74,7 @@ def step_settings(base: SamplingSettings, index: int) -> SamplingSettings:
         equilibration_moves=int(round(base.equilibration_moves * s.effort)),
         production_moves=int(round(base.production_moves * s.effort)),
         max_production_moves=int(round(base.max_production_moves * s.effort)),
-        exchange=False,
+        replica_exchange=False,
     )
     if s.method.startswith("biased"):
         out = replace(out, insertion_trials=base.biased_trials)
