@@ -175,7 +175,7 @@ def check_settings(target: QualityTarget, **overrides: Any) -> Any:
     from gcmc.quality.resolution import NoiseModel
 
     kw: dict[str, Any] = {
-        "target_rel_error": target.target_rel_error,
+        "target_rel_stderr": target.target_rel_error,
         "noise": NoiseModel(target.noise_rel, target.noise_abs_mmol_cm3),
         "pressures_Pa": target.pressures_array(),
     }
