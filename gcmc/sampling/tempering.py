@@ -2,7 +2,7 @@
 (Yan & de Pablo, J. Chem. Phys. 111 (1999) 9509).
 
 A chain of grand canonical ensembles k = 0..K-1, each at its own temperature T_k and activity
-z_k (z = beta f, see CONVENTIONS.md), shares one pore model. Typically the chain is the
+z_k (z = beta f, the fugacity over kT), shares one pore model. Typically the chain is the
 width's pressure ladder at the kernel temperature followed by a few hotter states, so that a
 filled pore whose packing is frozen at the kernel temperature melts in the hot rungs and
 re-forms on the way down: the chemical-potential-only ladder (:mod:`gcmc.sampling.ladder`)
