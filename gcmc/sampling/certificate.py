@@ -147,10 +147,29 @@ def is_dense_subcritical(model: PoreModel, temperature_K: float, density_per_nm3
     """Whether a point needs the certified path: a slit below the probe's critical temperature
     whose pore density (per pore volume) times sigma^3 exceeds DENSE_FILLING (liquid- or
     solid-like)."""
-    tc = model.probe.critical_temperature_K
-    if model.geometry != SLIT or not math.isfinite(tc) or temperature_K >= tc:
+    return dense_subcritical_state(
+        model.geometry,
+        temperature_K,
+        model.probe.critical_temperature_K,
+        model.probe.sigma_nm,
+        density_per_nm3,
+    )
+
+
+def dense_subcritical_state(
+    geometry: str,
+    temperature_K: float,
+    critical_temperature_K: float,
+    sigma_nm: float,
+    density_per_nm3: float,
+) -> bool:
+    """:func:`is_dense_subcritical` on plain numbers (e.g. a kernel's probe and points): a
+    slit, T below a finite critical temperature, and density x sigma^3 > DENSE_FILLING (a NaN
+    density or sigma is not dense)."""
+    tc = critical_temperature_K
+    if geometry != SLIT or not math.isfinite(tc) or not temperature_K < tc:
         return False
-    return density_per_nm3 * model.probe.sigma_nm**3 > DENSE_FILLING
+    return bool(density_per_nm3 * sigma_nm**3 > DENSE_FILLING)
 
 
 def _hot_states(
