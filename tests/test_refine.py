@@ -371,6 +371,22 @@ def test_certified_step_is_given_up_when_its_first_attempt_does_not_fit() -> Non
             )
 
 
+def test_show_names_the_method_that_produced_each_rerun_point() -> None:
+    """`gcmc show`'s refinement lines from a kernel's provenance (the build's points_rerun
+    record, one entry per replaced point with its step's method)."""
+    from gcmc.cli.kernel import refinement_lines
+
+    rerun = {
+        "t000_w010 adsorption p15": {"step": 5, "method": CERTIFIED.method, "effort": 1.0},
+        "t000_w011 adsorption p3": {"step": 1, "method": STEPS[0].method, "effort": 2.0},
+        "t000_w012 adsorption p3": {"step": 1, "method": STEPS[0].method, "effort": 2.0},
+    }
+    lines = refinement_lines({"rounds": [], "points_rerun": rerun, "stop": "target met"})
+    (line,) = [x for x in lines if x.startswith("points rerun, by the method")]
+    assert "auto insertion 2x x2" in line and "certified tempering 1x x1" in line
+    assert not any("by the method" in x for x in refinement_lines({"rounds": []}))
+
+
 # --- tasks -----------------------------------------------------------------------------------
 
 
