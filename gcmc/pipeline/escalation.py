@@ -13,11 +13,11 @@ after those, :data:`CERTIFIED`: the certificate of a filled point
 (:func:`gcmc.sampling.certificate.certify_filled_point`, method ``"certified-tempering"`` of
 its POINT_METHODS): four independent hyper-parallel tempering preparations that must agree
 within 1 %, renew their content and pass a box-size check. Its CPU budget is what the point's
-earlier reruns left of the target's per-point budget (:attr:`Task.cpu_budget_s`, set by the
-planner); its moves per rung are the config's, doubled by the certificate while the budget
-allows. Every other point (supercritical, or not filled) escalates through :data:`STEPS`
-only, exactly as without this step: :func:`steps_for` and :func:`last_step` say which steps a
-point has.
+earlier reruns left of the target's per-point budget (``cpu_budget_s`` of the rerun's
+:class:`gcmc.pipeline.tasks.Task`, set by the planner); its moves per rung are the config's,
+doubled by the certificate while the budget allows. Every other point (supercritical, or
+not filled) escalates through :data:`STEPS` only, exactly as without this step:
+:func:`steps_for` and :func:`last_step` say which steps a point has.
 
 Each rerun has its own random stream, derived from the config's seed and the rerun's
 coordinates (width, branch, point, step: :func:`gcmc.pipeline.tasks.task_seed`), so a rerun is
