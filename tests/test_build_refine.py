@@ -78,7 +78,7 @@ def reference(tmp_path_factory: pytest.TempPathFactory) -> Any:
 def test_refined_build_records_what_it_did(reference: Any) -> None:
     data, res, cfg = reference
     ref = data.provenance["refinement"]
-    assert data.provenance["target"]["target_rel_error"] == 0.05
+    assert data.provenance["target"]["target_rel_stderr"] == 0.05
     # the config's widths are all there, the added ones come from round 1
     h = list(np.round(data.widths_H_nm, 6))
     assert set(GRID) <= set(h) and h == sorted(h)

@@ -278,15 +278,15 @@ def point_findings(
         for j in np.flatnonzero(data.accessible[t]):
             for k in np.flatnonzero(np.isfinite(n[t, j]) & np.isfinite(s[t, j])):
                 rel = s[t, j, k] / max(n[t, j, k], floor)
-                if rel <= target.target_rel_error:
+                if rel <= target.target_rel_stderr:
                     continue
                 key = (t, int(j), 0, int(k))
                 cur = current(key)
-                need = step(cur).effort * EFFORT_MARGIN * (rel / target.target_rel_error) ** 2
+                need = step(cur).effort * EFFORT_MARGIN * (rel / target.target_rel_stderr) ** 2
                 add(
                     "error",
                     key,
-                    f"relative error {rel:.3g} > {target.target_rel_error:g}",
+                    f"relative error {rel:.3g} > {target.target_rel_stderr:g}",
                     first_step_with_effort(cur, need),
                 )
     # outliers between widths (the check's warn rule)
