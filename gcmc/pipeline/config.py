@@ -475,6 +475,7 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         sample_every=sf.integer("sample_every", d.sample_every, 1),
         insertion_trials=sf.integer("insertion_trials", d.insertion_trials, 0),
         biased_trials=sf.integer("biased_trials", d.biased_trials, 2),
+        bias_threshold=sf.number("bias_threshold", d.bias_threshold),  # type: ignore[arg-type]
         replicas=sf.integer("replicas", d.replicas, 1),
         target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
         max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),

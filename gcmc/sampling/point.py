@@ -105,6 +105,8 @@ class SamplingSettings:
             raise InputError("sampling.replicas: must be >= 1")
         if self.target_rel_stderr < 0:
             raise InputError("sampling.target_rel_stderr: must be >= 0")
+        if not 0.0 < self.bias_threshold < 1.0:
+            raise InputError("sampling.bias_threshold: must be in (0, 1)")
 
     @property
     def extends(self) -> bool:
