@@ -3,8 +3,8 @@ must show: fits near reduced chi-square 1 at default settings, and a Henry-law e
 the lowest simulated pressure that agrees with the simulated low-pressure points.
 
 The default suite builds a cut-down first grid of the quickstart (every other width, its
-``[target]`` with ``refine = false``: the refinement rounds cost minutes); the slow test builds it as shipped,
-refining itself, and runs ``gcmc check`` on the result."""
+``[target]`` with ``refine = false``: the refinement rounds cost minutes); the slow test
+builds it as shipped, refining itself, and runs ``gcmc check`` on the result."""
 
 from __future__ import annotations
 
