@@ -256,6 +256,38 @@ class CheckSettings:
         if self.inversion_method not in METHODS:
             raise InputError(f"--inversion: must be one of {', '.join(METHODS)}")
 
+    def to_dict(self, measurement: bool = True) -> dict[str, Any]:
+        """The settings as written in a report's ``settings`` (not yet JSON-ready).
+
+        Parameters
+        ----------
+        measurement : bool
+            Include the measurement's ``noise`` and ``pressures_Pa``; False for a set's
+            report, whose members carry their own.
+
+        Returns
+        -------
+        dict
+            The settings by name; ``temperatures_K`` and ``psds`` are not written.
+        """
+        out: dict[str, Any] = {"target_rel_stderr": self.target_rel_stderr}
+        if measurement:
+            out["noise"] = {
+                "relative": self.noise.relative,
+                "absolute_mmol_cm3": self.noise.absolute_mmol_cm3,
+                "model": self.noise.describe(),
+            }
+            out["pressures_Pa"] = None if self.pressures_Pa is None else list(self.pressures_Pa)
+        out.update(
+            chi2_threshold=self.chi2_threshold,
+            resolution_fraction=self.resolution_fraction,
+            realisations=self.realisations,
+            seed=self.seed,
+            pore_volume_cm3_g=self.pore_volume_cm3_g,
+            inversion_method=self.inversion_method,
+        )
+        return out
+
 
 @dataclass
 class CheckReport:
@@ -289,7 +321,6 @@ class CheckReport:
 
     def to_dict(self) -> dict[str, Any]:
         """The report as JSON-ready dict (check.json)."""
-        s = self.settings
         return _jsonable(
             {
                 "kernel": {
@@ -298,21 +329,7 @@ class CheckReport:
                     "path": self.path,
                 },
                 "verdict": self.verdict,
-                "settings": {
-                    "target_rel_stderr": s.target_rel_stderr,
-                    "noise": {
-                        "relative": s.noise.relative,
-                        "absolute_mmol_cm3": s.noise.absolute_mmol_cm3,
-                        "model": s.noise.describe(),
-                    },
-                    "pressures_Pa": None if s.pressures_Pa is None else list(s.pressures_Pa),
-                    "chi2_threshold": s.chi2_threshold,
-                    "resolution_fraction": s.resolution_fraction,
-                    "realisations": s.realisations,
-                    "seed": s.seed,
-                    "pore_volume_cm3_g": s.pore_volume_cm3_g,
-                    "inversion_method": s.inversion_method,
-                },
+                "settings": self.settings.to_dict(),
                 "criteria": [asdict(c) for c in self.criteria],
             }
         )

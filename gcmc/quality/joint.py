@@ -1043,14 +1043,21 @@ class SetSettings:
     psds: tuple[SyntheticPSD, ...] | None = None  # None: default_set_psds()
     member_health: bool = True
 
-    def validate(self) -> None:
-        """Raise InputError naming the first setting out of range."""
-        CheckSettings(
+    def check_settings(self) -> CheckSettings:
+        """The single check's settings these share (the measurement's left at defaults)."""
+        return CheckSettings(
             target_rel_stderr=self.target_rel_stderr,
+            chi2_threshold=self.chi2_threshold,
+            resolution_fraction=self.resolution_fraction,
             realisations=self.realisations,
+            seed=self.seed,
             pore_volume_cm3_g=self.pore_volume_cm3_g,
             inversion_method=self.inversion_method,
-        ).validate()
+        )
+
+    def validate(self) -> None:
+        """Raise InputError naming the first setting out of range."""
+        self.check_settings().validate()
 
 
 def member_health(members: list[Member], settings: SetSettings) -> Criterion:
@@ -1126,7 +1133,6 @@ class SetReport:
 
     def to_dict(self) -> dict[str, Any]:
         """The report as JSON-ready dict."""
-        s = self.settings
         return jsonable(
             {
                 "members": [
@@ -1148,15 +1154,7 @@ class SetReport:
                     for m in self.members
                 ],
                 "verdict": self.verdict,
-                "settings": {
-                    "target_rel_stderr": s.target_rel_stderr,
-                    "chi2_threshold": s.chi2_threshold,
-                    "resolution_fraction": s.resolution_fraction,
-                    "realisations": s.realisations,
-                    "seed": s.seed,
-                    "pore_volume_cm3_g": s.pore_volume_cm3_g,
-                    "inversion_method": s.inversion_method,
-                },
+                "settings": self.settings.check_settings().to_dict(measurement=False),
                 "criteria": [asdict(c) for c in self.criteria],
             }
         )
