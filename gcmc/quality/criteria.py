@@ -321,7 +321,7 @@ class CheckReport:
 
     def to_dict(self) -> dict[str, Any]:
         """The report as JSON-ready dict (check.json)."""
-        return _jsonable(
+        return jsonable(
             {
                 "kernel": {
                     "name": self.kernel_name,
@@ -335,15 +335,28 @@ class CheckReport:
         )
 
 
-def _jsonable(x: Any) -> Any:
+def jsonable(x: Any) -> Any:
+    """Plain Python values for JSON: numpy scalars and arrays unpacked, NaN and inf -> None
+    (an unavailable number); dict keys as str.
+
+    Parameters
+    ----------
+    x : Any
+        A value, possibly nested dicts, lists and tuples.
+
+    Returns
+    -------
+    Any
+        The same structure with only JSON-ready values.
+    """
     if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
+        return {str(k): jsonable(v) for k, v in x.items()}
     if isinstance(x, list | tuple):
-        return [_jsonable(v) for v in x]
+        return [jsonable(v) for v in x]
     if isinstance(x, np.ndarray):
-        return _jsonable(x.tolist())
+        return jsonable(x.tolist())
     if isinstance(x, np.generic):
-        return _jsonable(x.item())
+        return jsonable(x.item())
     if isinstance(x, float) and not math.isfinite(x):
         return None
     return x

@@ -50,7 +50,6 @@ selection (first the best single member, then the one that adds most to it, ...)
 from __future__ import annotations
 
 import hashlib
-import math
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -71,6 +70,7 @@ from gcmc.quality.criteria import (
     Criterion,
     SyntheticPSD,
     as_kernel,
+    jsonable,
     match_modes,
     psd_peaks,
     run_checks,
@@ -1158,21 +1158,6 @@ class SetReport:
                 "criteria": [asdict(c) for c in self.criteria],
             }
         )
-
-
-def jsonable(x: Any) -> Any:
-    """x with numpy arrays and scalars as lists and numbers, non-finite floats as None."""
-    if isinstance(x, dict):
-        return {str(k): jsonable(v) for k, v in x.items()}
-    if isinstance(x, list | tuple):
-        return [jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return jsonable(x.tolist())
-    if isinstance(x, np.generic):
-        return jsonable(x.item())
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    return x
 
 
 def run_set_checks(members: list[Member], settings: SetSettings | None = None) -> SetReport:
