@@ -95,21 +95,21 @@ def first_step_with_effort(current: int, effort: float) -> int:
 def run_point_task(plan: BuildPlan, task: Task) -> Path:
     """Rerun one point (a cold start at the task's escalation step); write its task file."""
     from gcmc.physics.henry import pore_limit
-    from gcmc.pipeline.tasks import BRANCHES, finish_task, pore_model, task_seed
-    from gcmc.sampling.point import ThermoState, simulate_point
+    from gcmc.pipeline.tasks import (
+        BRANCHES,
+        finish_task,
+        point_field,
+        point_state,
+        pore_model,
+        task_seed,
+    )
+    from gcmc.sampling.point import simulate_point
 
     cfg = plan.config
     tp = plan.temperatures[task.t_index]
     model = pore_model(cfg, task.w_index, task.width_H_nm(cfg))
     k = task.point
-    state = ThermoState(
-        temperature_K=tp.temperature_K,
-        fugacity_Pa=float(tp.fugacities_Pa[k]),
-        pressure_Pa=float(tp.pressures_Pa[k]),
-        bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
-        residual_enthalpy_K=float(tp.residual_enthalpy_K[k]),
-        eos=cfg.eos,
-    )
+    state = point_state(cfg, tp, k)
     settings = step_settings(cfg.sampling, task.step)
     t0, c0 = time.perf_counter(), time.process_time()
     out = simulate_point(model, state, settings, task_seed(cfg, task), start=None)
@@ -117,13 +117,7 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
     r = out.result
     arrays: dict[str, np.ndarray] = {}
     for name in POINT_FIELDS:
-        if name == "insertion_acceptance":
-            val = r.acceptance.get("insertion", np.nan)
-        elif name == "converged":
-            val = 1.0 if r.converged else 0.0
-        else:
-            val = getattr(r, name)
-        arrays[f"point/{name}"] = np.array(float(val))
+        arrays[f"point/{name}"] = np.array(float(point_field(r, name)))
     limit = pore_limit(model, tp.temperature_K)
     meta = {
         "task": task.key,
