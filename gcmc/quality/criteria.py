@@ -226,6 +226,18 @@ class RoundTrip:
         return out
 
 
+#: The settings of how a check judges (not of the measurement), after ``target_rel_stderr``:
+#: shared by a set's settings and written in that order in the reports.
+JUDGING_FIELDS = (
+    "chi2_threshold",
+    "resolution_fraction",
+    "realisations",
+    "seed",
+    "pore_volume_cm3_g",
+    "inversion_method",
+)
+
+
 @dataclass
 class CheckSettings:
     """Options of :func:`run_checks` (the CLI's options, with the same defaults)."""
@@ -278,14 +290,7 @@ class CheckSettings:
                 "model": self.noise.describe(),
             }
             out["pressures_Pa"] = None if self.pressures_Pa is None else list(self.pressures_Pa)
-        out.update(
-            chi2_threshold=self.chi2_threshold,
-            resolution_fraction=self.resolution_fraction,
-            realisations=self.realisations,
-            seed=self.seed,
-            pore_volume_cm3_g=self.pore_volume_cm3_g,
-            inversion_method=self.inversion_method,
-        )
+        out.update({name: getattr(self, name) for name in JUDGING_FIELDS})
         return out
 
 

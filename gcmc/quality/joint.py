@@ -60,6 +60,7 @@ from gcmc.kernel.data import KernelData
 from gcmc.kernel.reader import Kernel
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.quality.criteria import (
+    JUDGING_FIELDS,
     MIN_MODE_STEPS,
     ROUND_TRIP_FOUND_FRACTION,
     ROUND_TRIP_MATCH_WINDOW,
@@ -1047,12 +1048,7 @@ class SetSettings:
         """The single check's settings these share (the measurement's left at defaults)."""
         return CheckSettings(
             target_rel_stderr=self.target_rel_stderr,
-            chi2_threshold=self.chi2_threshold,
-            resolution_fraction=self.resolution_fraction,
-            realisations=self.realisations,
-            seed=self.seed,
-            pore_volume_cm3_g=self.pore_volume_cm3_g,
-            inversion_method=self.inversion_method,
+            **{name: getattr(self, name) for name in JUDGING_FIELDS},
         )
 
     def validate(self) -> None:
