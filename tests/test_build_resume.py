@@ -401,6 +401,11 @@ BAD_CONFIGS = [
         (r"from_Pa = 1\.0e4", "from_Pa = -1.0e4"),
         ["pressures.from_Pa", "> 0"],
     ),
+    (
+        "bias threshold out of range",
+        (r"production_moves = 20000", "production_moves = 20000\nbias_threshold = 1.5"),
+        ["sampling.bias_threshold", "(0, 1)"],
+    ),
     ("duplicate widths", (r"0\.80, 1\.00", "1.00, 1.00"), ["widths", "duplicate"]),
     ("unsorted widths", (r"0\.80, 1\.00", "1.00, 0.80"), ["widths", "sorted"]),
     (

@@ -11,6 +11,7 @@ from dataclasses import replace
 
 import pytest
 
+from gcmc.kernel import flags as fl
 from gcmc.physics.eos import make_eos
 from gcmc.physics.model import get_probe
 from gcmc.physics.potentials import slit_pore
@@ -96,8 +97,8 @@ def test_each_failure_stays_flagged_with_its_reason(change, flag):
     boxp = _prep("box", change.get("box", 20.01))
     cert = C.judge_preparations(C.CertifySettings(), preps, boxp, 10, 1.0)
     assert not cert.certified and not cert.result.converged
-    assert [f.split("[")[0].split(":")[0] for f in cert.flags] == [flag]
-    assert flag in C.CERTIFICATE_FLAGS
+    assert fl.kinds(cert.flags) == [flag]
+    assert fl.lookup(flag) in fl.CERTIFICATE_FLAGS
     assert cert.result.flags == cert.flags
 
 
@@ -129,8 +130,11 @@ def test_short_certification_runs_end_to_end_and_is_honest(engine):
     big, small = cert.box_check.box_nm, cert.preparations[0].box_nm
     assert big[0] * big[1] == pytest.approx(2.0 * small[0] * small[1], rel=0.1)
     assert not cert.certified and cert.flags
-    assert any(f.startswith("budget_spent") for f in cert.flags)
-    assert all(f.split("[")[0].split(":")[0] in C.CERTIFICATE_FLAGS for f in cert.flags)
+    assert fl.has_flag(cert.flags, fl.BUDGET_SPENT)
+    assert all(fl.lookup(k) in fl.CERTIFICATE_FLAGS for k in fl.kinds(cert.flags)), cert.flags
+    # the stored point carries the same flags, and they parse back one by one
+    assert cert.result.flags == cert.flags
+    assert fl.kinds(fl.join(cert.result.flags)) == fl.kinds(cert.flags)
     assert cert.result.method == "certified-tempering" and not cert.result.converged
     assert C.is_dense_subcritical(model, 87.3, cert.density_per_nm3)
     assert not C.is_dense_subcritical(model, 160.0, cert.density_per_nm3)  # above T_c
@@ -196,3 +200,83 @@ def test_certified_path_bad_input(extra, field, capsys):
     assert code == 2 and out == ""
     lines = err.strip().splitlines()
     assert len(lines) == 1 and field in lines[0], err
+
+
+# --- the certified step of a quality-target build (gcmc.pipeline.escalation) ----------------
+
+DENSE_BUILD = """
+seed = 3
+[kernel]
+name = "dense-argon"
+output = "out"
+[probe]
+library_name = "argon"
+[widths]
+H_nm = [1.0215]
+[temperatures]
+K = [87.3]
+[pressures]
+p_p0 = [0.05, 0.1]
+[sampling]
+equilibration_moves = 2000
+production_moves = 4000
+sample_every = 100
+[target]
+cpu_hours = 0.01
+cpu_hours_per_point = 0.0005
+"""
+
+
+def test_certified_step_writes_a_task_file_that_assembles(tmp_path, engine):
+    """Argon at 87.3 K in a 3 sigma pore (as above): the build's ladder, then the point at
+    p/p0 = 0.1 rerun at the certified step with a CPU budget far too small to certify it. The
+    task file holds every point field, the seconds and CPU seconds, the method and the
+    certificate's summary in its meta; the kernel assembled with it as an override carries
+    its density, error and flags (of the one table) at that point, and the ladder's value at
+    the other."""
+    import numpy as np
+
+    from gcmc.kernel.data import POINT_FIELDS
+    from gcmc.pipeline.assemble import Layout, assemble_kernel, grid_layout
+    from gcmc.pipeline.config import load_config
+    from gcmc.pipeline.escalation import CERTIFIED, STEPS, step
+    from gcmc.pipeline.refine import dense_point
+    from gcmc.pipeline.tasks import Task, load_task, make_plan, run_task
+
+    cfg_path = tmp_path / "dense.toml"
+    cfg_path.write_text(DENSE_BUILD)
+    plan = make_plan(load_config(cfg_path))
+    (ladder,) = plan.tasks
+    run_task(plan, ladder)
+    first, _ = assemble_kernel(plan, 1)
+    assert dense_point(first, (0, 0, 0, 1)), "the filled 3 sigma pore is dense subcritical"
+    task = Task(0, 0, 0.0, point=1, step=len(STEPS) + 1, cpu_budget_s=1.0)
+    assert step(task.step) is CERTIFIED
+    arrays, meta = load_task(run_task(plan, task))  # run_task hands a rerun to the escalation
+    assert meta["method"] == "certified tempering" and meta["effort"] == CERTIFIED.effort
+    assert meta["point_method"] == "certified-tempering" and meta["cpu_budget_s"] == 1.0
+    assert meta["step"] == len(STEPS) + 1 and meta["spawn_key"] == list(task.spawn_key())
+    cert = meta["certificate"]
+    assert not cert["certified"] and set(cert["preparations"]) == {
+        *C.PREPARATIONS,
+        "below, larger box",
+    }
+    assert all(f"point/{f}" in arrays for f in POINT_FIELDS)
+    assert float(arrays["cpu_seconds"]) > 0 and float(arrays["seconds"]) > 0
+    kinds = fl.kinds(meta["flags"])
+    assert "budget_spent" in kinds and all(fl.lookup(k) is not None for k in kinds), kinds
+    assert float(arrays["point/converged"]) == 0.0  # not certified: unconverged
+    # the certified result is the preparations' mean (within their spread)
+    n = float(arrays["point/density_per_nm3"])
+    assert min(cert["preparations"].values()) <= n <= max(cert["preparations"].values())
+    # assembled as the point's override
+    grid = grid_layout(plan)
+    layout = Layout(grid.widths_H_nm, grid.ladders, {(0, 0, 0, 1): task})
+    data, _ = assemble_kernel(plan, 1, layout)
+    pts = data.points["adsorption"]
+    assert pts["density_per_nm3"][0, 0, 1] == n
+    assert pts["density_per_nm3_stderr"][0, 0, 1] == float(arrays["point/density_per_nm3_stderr"])
+    assert not pts["converged"][0, 0, 1]
+    assert data.flags["adsorption"][0, 0, 1] == meta["flags"]
+    assert pts["density_per_nm3"][0, 0, 0] == first.points["adsorption"]["density_per_nm3"][0, 0, 0]
+    assert np.isfinite(data.task_seconds[0, 0])

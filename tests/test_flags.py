@@ -14,11 +14,21 @@ def test_the_set_is_closed_and_named_once() -> None:
     assert all(n.isidentifier() and n == n.lower() for n in names)
     # only the informational flag leaves a point converged
     assert [f.name for f in fl.FLAGS if not f.unconverged] == ["inaccessible"]
+    # the certificate's flags are of the one table, and none shares a kind with the
+    # point-wise sampler's
+    assert set(fl.CERTIFICATE_FLAGS) <= set(fl.FLAGS)
+    assert [f.name for f in fl.CERTIFICATE_FLAGS] == [
+        "preparations_disagree",
+        "preparation_drift",
+        "few_renewals",
+        "box_size_disagrees",
+        "budget_spent",
+    ]
 
 
 def test_text_round_trips_through_the_parser() -> None:
     for f in fl.FLAGS:
-        for replica in (None, 0, 3):
+        for replica in (None, 0, 3, "below", "below, larger box"):
             for detail in ("", "z = 4.1: a colon inside; no", "N = 12"):
                 if ";" in detail:
                     continue  # the separator cannot appear inside a flag
@@ -27,6 +37,45 @@ def test_text_round_trips_through_the_parser() -> None:
                 assert fl.has_flag([text], f)
                 assert fl.has_flag(text, f, replica=replica) or replica is None
                 assert fl.lookup(fl.kind(text)) is f
+
+
+def test_separator_inside_a_detail_cannot_split_a_flag() -> None:
+    """A detail holding "; " (the separator) used to become a second, unknown flag when the
+    stored string was read back; flag_text writes it as ",", so one flag stays one."""
+    text = fl.flag_text(fl.BUDGET_SPENT, detail="9 CPU s after 1 attempt(s); the next would")
+    stored = fl.join([text, fl.flag_text(fl.FEW_RENEWALS, "annealed", "1.0 < 3")])
+    assert fl.kinds(stored) == ["budget_spent", "few_renewals"]
+    assert fl.has_flag(stored, fl.FEW_RENEWALS, replica="annealed")
+    assert not fl.has_flag(stored, fl.FEW_RENEWALS, replica="below")
+    assert fl.kind(fl.flag_text(fl.PREPARATION_DRIFT, "odd]:name;")) == "preparation_drift"
+
+
+def test_certificate_flags_are_of_the_set_and_decide_converged() -> None:
+    """judge_preparations on invented preparations that fail every criterion at once: each
+    flag it writes is of the table (CERTIFICATE_FLAGS), parses back from the stored string,
+    and makes the point unconverged, as its verdict says."""
+    from test_certificate import _prep
+
+    from gcmc.sampling import certificate as C
+
+    preps = [
+        _prep("below", 20.0, renewals=0.5),
+        _prep("overfilled", 21.0, drift_passed=False, drift_z=6.0),
+        _prep("annealed", 19.9),
+        _prep("below-2", 20.1),
+    ]
+    cert = C.judge_preparations(C.CertifySettings(), preps, _prep("box", 23.0), 10, 1.0)
+    stored = fl.join(cert.result.flags)
+    assert set(fl.kinds(stored)) == {
+        "preparations_disagree",
+        "preparation_drift",
+        "few_renewals",
+        "box_size_disagrees",
+    }
+    assert fl.has_flag(stored, fl.PREPARATION_DRIFT, replica="overfilled")
+    assert fl.has_flag(stored, fl.FEW_RENEWALS, replica="below")
+    assert all(fl.lookup(k) in fl.CERTIFICATE_FLAGS for k in fl.kinds(stored))
+    assert not cert.certified and cert.result.converged == (not fl.makes_unconverged(stored))
 
 
 def test_has_flag_does_not_match_by_prefix() -> None:

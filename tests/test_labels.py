@@ -255,3 +255,29 @@ def test_check_help_documents_info_and_quadrature() -> None:
     text = " ".join(_subparsers()["check"].format_help().split())
     assert "info where it only reports numbers" in text
     assert "sqrt((R n)^2 + A^2)" in text
+
+
+def test_target_rel_stderr_key_and_its_old_name(tmp_path: Path) -> None:
+    """[target] names the point-error target as gcmc check and [sampling] do
+    (target_rel_stderr); the old key is read with a warning and keeps the config's hash (a
+    kernel built before stays up to date), both keys at once are refused, and a kernel whose
+    stored target has the old key still gives its target back."""
+    from gcmc.quality.target import QualityTarget
+
+    def cfg(key: str) -> Path:
+        text = (REPO / "tests" / "configs" / "refine.toml").read_text()
+        assert "target_rel_stderr = 0.05" in text
+        path = tmp_path / "r.toml"
+        path.write_text(text.replace("target_rel_stderr = 0.05", key))
+        return path
+
+    new = load_config(cfg("target_rel_stderr = 0.05"))
+    assert new.target is not None and new.target.target_rel_stderr == 0.05
+    with pytest.warns(FutureWarning, match="target_rel_error: deprecated key"):
+        old = load_config(cfg("target_rel_error = 0.05"))
+    assert old.target == new.target and old.config_hash == new.config_hash
+    with pytest.raises(InputError, match="target_rel_stderr only"):
+        load_config(cfg("target_rel_error = 0.05\ntarget_rel_stderr = 0.05"))
+    stored = new.target.to_dict()
+    stored["target_rel_error"] = stored.pop("target_rel_stderr")
+    assert QualityTarget.from_dict(stored) == new.target

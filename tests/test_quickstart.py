@@ -2,9 +2,9 @@
 must show: fits near reduced chi-square 1 at default settings, and a Henry-law extension below
 the lowest simulated pressure that agrees with the simulated low-pressure points.
 
-The default suite builds the quickstart's first grid only (its ``[target]`` with
-``refine = false``: the refinement rounds cost minutes); the slow test builds it as shipped,
-refining itself, and runs ``gcmc check`` on the result."""
+The default suite builds a cut-down first grid of the quickstart (every other width, its
+``[target]`` with ``refine = false``: the refinement rounds cost minutes); the slow test
+builds it as shipped, refining itself, and runs ``gcmc check`` on the result."""
 
 from __future__ import annotations
 
@@ -28,6 +28,13 @@ def quickstart_text(out: Path, refine: bool) -> str:
     if not refine:
         assert "\n[target]\n" in text
         text = text.replace("\n[target]\n", "\n[target]\nrefine = false\n", 1)
+        # a cut-down first grid (every other width: the default suite's cost)
+        for old, new in (
+            ("step_nm = 0.025 }", "step_nm = 0.05 }"),
+            ("step_nm = 0.125 }", "step_nm = 0.25 }"),
+        ):
+            assert old in text, "the quickstart's width grid changed; update this test"
+            text = text.replace(old, new)
     return text
 
 
@@ -77,21 +84,41 @@ def test_quickstart_kernel_reads_and_evaluates(quickstart_kernel: Path) -> None:
     assert np.all(np.diff(m, axis=0) >= -1e-9)
 
 
-@pytest.mark.xfail(
-    reason="after the refinement merge a first-grid fit reports a NaN reduced chi2 (open)",
-    strict=False,
-)
 def test_fits_near_unit_reduced_chi2(quickstart_kernel: Path) -> None:
     """At default settings the chosen forms describe the simulated isotherms to within their
     errors: the reduced chi-square scatters around 1 (for 10 points and 2-4 parameters its
-    standard deviation is about sqrt(2/dof) ~ 0.5; we allow a median within [0.3, 3])."""
+    standard deviation is about sqrt(2/dof) ~ 0.5; we allow a median within [0.3, 3]).
+
+    An isotherm that no form describes is stored as the monotone interpolant, whose own
+    chi-square has no degrees of freedom left (NaN); it counts here with the best reduced
+    chi-square any form reached on it, so a failing form raises the median instead of
+    leaving it undefined."""
     from gcmc.kernel.reader import open_kernel
+    from gcmc.pipeline.fits import fit_isotherm
 
     d = open_kernel(quickstart_kernel).data
-    chi = [f.reduced_chi2 for row in d.fits for f in row if f.form != "zero"]
+    pts = d.points["adsorption"]
+    chi, accepted = [], []
+    for t, row in enumerate(d.fits):
+        for w, f in enumerate(row):
+            if f.form == "zero":
+                continue
+            accepted.append(f.accepted)
+            if f.accepted:
+                chi.append(f.reduced_chi2)
+                continue
+            # the candidates the build tried on this isotherm (the quickstart's default forms)
+            res = fit_isotherm(
+                d.pressures_Pa[t],
+                pts["density_per_nm3"][t, w],
+                pts["density_per_nm3_stderr"][t, w],
+            )
+            tried = [c[1] for c in res.candidates if np.isfinite(c[1])]
+            assert tried, (d.widths_H_nm[w], res.candidates)
+            chi.append(min(tried))
     assert chi, "no fitted isotherm"
+    assert np.all(np.isfinite(chi)), chi
     assert 0.3 <= float(np.median(chi)) <= 3.0, chi
-    accepted = [f.accepted for row in d.fits for f in row if f.form != "zero"]
     assert sum(accepted) >= 0.6 * len(accepted), chi
 
 

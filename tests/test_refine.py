@@ -23,8 +23,17 @@ from test_check import GOOD_WIDTHS, SIGMA_SS, make_kernel, two_site
 
 from gcmc.errors import InputError
 from gcmc.pipeline.assemble import Layout
-from gcmc.pipeline.escalation import STEPS, first_step_with_effort, step, step_settings
-from gcmc.pipeline.refine import gap_findings, place_widths, plan_round
+from gcmc.pipeline.escalation import (
+    CERTIFIED,
+    STEPS,
+    first_step_with_effort,
+    is_dense_point,
+    last_step,
+    step,
+    step_settings,
+    steps_for,
+)
+from gcmc.pipeline.refine import dense_point, gap_findings, place_widths, plan_round
 from gcmc.pipeline.tasks import (
     DamagedTask,
     Task,
@@ -212,6 +221,170 @@ def test_step_settings_escalate_moves_then_method() -> None:
     s3 = step_settings(base, 3)
     assert s3.insertion_trials == base.biased_trials
     assert step_settings(base, len(STEPS)).replicas == 3
+
+
+# --- the certified step: dense subcritical points only -----------------------------------------
+
+#: the test kernel's temperature (298.15 K) is below this invented critical temperature (its
+#: probe "testgas" is invented too): its filled points are dense subcritical
+TC_SUB, TC_SUPER = 400.0, 190.0
+DENSE = (10, 15)  # rho sigma^3 = 10.6 x 0.37^3 = 0.54 > DENSE_FILLING (0.5)
+DILUTE = (10, 5)  # rho sigma^3 = 0.25 x 0.37^3 ~ 0.01
+
+
+def with_tc(data, tc: float):  # noqa: ANN001, ANN201
+    return dataclasses.replace(data, probe={**data.probe, "critical_temperature_K": tc})
+
+
+def unconverged_at(data, jk: tuple[int, int], tc: float):  # noqa: ANN001, ANN201
+    return with_tc(unconverged(data, *jk), tc)
+
+
+def rerun_at(j: int, k: int, s: int) -> dict:
+    return {(0, j, 0, k): Task(0, j, 1.0, point=k, step=s)}
+
+
+def test_step_choice_is_a_function_of_density_and_temperature() -> None:
+    """Dense subcritical (the certificate's predicate: slit, T < T_c, rho sigma^3 > 0.5): the
+    certified step after all of STEPS; anything else: STEPS only."""
+    assert steps_for(False) == STEPS and last_step(False) == len(STEPS)
+    assert steps_for(True) == (*STEPS, CERTIFIED) and last_step(True) == len(STEPS) + 1
+    assert step(len(STEPS) + 1) is CERTIFIED and CERTIFIED.point_method == "certified-tempering"
+    assert all(not s.point_method for s in STEPS)
+    probe = {"sigma_nm": 0.3405, "critical_temperature_K": 150.7}  # an argon-like LJ site
+    dense = 0.8 / 0.3405**3  # rho sigma^3 = 0.8: a liquid-like filling
+    assert is_dense_point(87.3, probe, dense)
+    assert not is_dense_point(160.0, probe, dense)  # above T_c: supercritical
+    assert not is_dense_point(150.7, probe, dense)  # at T_c: not below it
+    assert not is_dense_point(87.3, probe, 0.2 / 0.3405**3)  # a gas-like filling
+    assert not is_dense_point(87.3, probe, float("nan"))
+    assert not is_dense_point(87.3, {"sigma_nm": 0.3405}, dense)  # no T_c known
+    assert not is_dense_point(87.3, probe, dense, geometry="bulk")
+    # from a kernel: the point's current density, the kernel's temperature and probe
+    data = kernel()
+    assert dense_point(with_tc(data, TC_SUB), (0, *DENSE[:1], 0, DENSE[1]))
+    assert not dense_point(with_tc(data, TC_SUB), (0, DILUTE[0], 0, DILUTE[1]))
+    assert not dense_point(with_tc(data, TC_SUPER), (0, DENSE[0], 0, DENSE[1]))
+    assert not dense_point(data, (0, DENSE[0], 0, DENSE[1]))  # the test probe has no T_c
+
+
+def escalate(data, jk: tuple[int, int], target: QualityTarget = TARGET, spent: float = 0.0):  # noqa: ANN001, ANN201
+    """Escalate one failing point round by round (each rerun "still failing"); the steps it
+    was given, and the finding that ended it."""
+    j, k = jk
+    lay = layout_for(data)
+    steps, budgets = [], []
+    for _ in range(len(STEPS) + 3):
+        rp = plan_round(data, lay, target, costs_for(lay), 0.0, {(0, j, 0, k): spent})
+        mine = [(t, why) for t, key, why in rp.reruns if key == (0, j, 0, k)]
+        if not mine:
+            (f,) = [f for f in rp.findings if f.where.endswith(f"{data.pressures_Pa[0, k]:.4g} Pa")]
+            return steps, budgets, f
+        task = mine[0][0]
+        steps.append(task.step)
+        budgets.append(task.cpu_budget_s)
+        lay = dataclasses.replace(lay, overrides={(0, j, 0, k): task})
+    raise AssertionError("escalation did not end")
+
+
+def test_dense_subcritical_point_escalates_to_the_certified_step_after_the_others() -> None:
+    data = unconverged_at(kernel(), DENSE, TC_SUB)
+    steps, budgets, f = escalate(data, DENSE)
+    assert steps == [1, 2, 3, 4, len(STEPS) + 1]
+    assert budgets == [0.0] * 4 + [TARGET.cpu_seconds_per_point]  # nothing spent before
+    assert f.action == "given_up" and "certified tempering" in f.detail
+    # what the earlier reruns spent is not the certificate's any more
+    _, budgets, _ = escalate(data, DENSE, spent=100.0)
+    assert budgets[-1] == TARGET.cpu_seconds_per_point - 100.0
+
+
+def test_supercritical_or_dilute_point_never_reaches_the_certified_step() -> None:
+    for data, jk in (
+        (unconverged_at(kernel(), DENSE, TC_SUPER), DENSE),  # filled, but above T_c
+        (unconverged_at(kernel(), DILUTE, TC_SUB), DILUTE),  # below T_c, but a gas
+        (unconverged(kernel(), *DENSE), DENSE),  # no T_c known
+    ):
+        steps, budgets, f = escalate(data, jk)
+        assert steps == [1, 2, 3, 4] and budgets == [0.0] * 4
+        assert f.action == "given_up" and "last escalation step" in f.detail
+        assert step(len(STEPS)).describe() in f.detail
+
+
+def test_supercritical_rounds_are_those_without_the_certified_step() -> None:
+    """The plan of a supercritical kernel is the same whatever its probe's T_c says as long
+    as T > T_c, and the same as with no T_c at all: the certified step changes nothing
+    there."""
+    base = unconverged(kernel(stepped), 10, 5)
+    pts = {b: {f: a.copy() for f, a in d.items()} for b, d in base.points.items()}
+    pts["adsorption"]["density_per_nm3_stderr"][0, 12, 15] *= 3.0  # above the error target
+    base = dataclasses.replace(base, points=pts)
+    lay = layout_for(base, rerun_at(12, 15, len(STEPS)))
+    plans = []
+    for data in (base, with_tc(base, TC_SUPER)):
+        rp = plan_round(data, lay, TARGET, costs_for(lay), 0.0, {})
+        plans.append(
+            ([(t, key) for t, key, _ in rp.reruns], rp.widths, [f.line() for f in rp.findings])
+        )
+    assert plans[0] == plans[1]
+    assert all(t.step <= len(STEPS) and t.cpu_budget_s == 0.0 for t, _ in plans[0][0])
+
+
+def test_error_target_reaches_the_certified_step_only_from_the_last_of_steps() -> None:
+    data = with_tc(kernel(), TC_SUB)
+    pts = {b: {f: a.copy() for f, a in d.items()} for b, d in data.points.items()}
+    j, k = DENSE
+    pts["adsorption"]["density_per_nm3_stderr"][0, j, k] = (
+        0.2 * pts["adsorption"]["density_per_nm3"][0, j, k]
+    )  # 10 x the 0.02 target: more effort than any step has
+    data = dataclasses.replace(data, points=pts)
+    assert first_step_with_effort(0, 1e3) == len(STEPS)  # the last of STEPS, not the certificate
+    assert first_step_with_effort(len(STEPS), 1e3) == len(STEPS) + 1
+    steps, _, f = escalate(data, DENSE)
+    assert steps == [len(STEPS), len(STEPS) + 1] and f.action == "given_up"
+
+
+def test_certified_step_is_given_up_when_its_first_attempt_does_not_fit() -> None:
+    """The planner's estimate of the certificate's first attempt (its chains' rungs, in
+    ladder points: CERTIFIED.cost_factor) against what is left of the per-point budget."""
+    data = unconverged_at(kernel(), DENSE, TC_SUB)
+    j, k = DENSE
+    lay = layout_for(data, rerun_at(j, k, len(STEPS)))
+    # the point's own seconds per unit of effort: 10 s; the first attempt ~ 10 x cost_factor
+    pts = {b: {f: a.copy() for f, a in d.items()} for b, d in data.points.items()}
+    pts["adsorption"]["seconds"][0, j, k] = 10.0 * step(len(STEPS)).cost_factor
+    data = dataclasses.replace(data, points=pts)
+    first = 10.0 * CERTIFIED.cost_factor
+    assert CERTIFIED.cost_factor > step(len(STEPS)).cost_factor
+    for left, runs in ((first * 0.9, False), (first * 1.1, True)):
+        spent = TARGET.cpu_seconds_per_point - left
+        rp = plan_round(data, lay, TARGET, costs_for(lay), 0.0, {(0, j, 0, k): spent})
+        mine = [t for t, key, _ in rp.reruns if key == (0, j, 0, k)]
+        if runs:
+            assert [t.step for t in mine] == [len(STEPS) + 1]
+            assert mine[0].cpu_budget_s == pytest.approx(left)
+            assert mine[0].estimated_cost == pytest.approx(left)  # what it may spend
+        else:
+            assert not mine
+            assert any(
+                f.action == "given_up" and "what is left of the per-point budget" in f.detail
+                for f in rp.findings
+            )
+
+
+def test_show_names_the_method_that_produced_each_rerun_point() -> None:
+    """`gcmc show`'s refinement lines from a kernel's provenance (the build's points_rerun
+    record, one entry per replaced point with its step's method)."""
+    from gcmc.cli.kernel import refinement_lines
+
+    rerun = {
+        "t000_w010 adsorption p15": {"step": 5, "method": CERTIFIED.method, "effort": 1.0},
+        "t000_w011 adsorption p3": {"step": 1, "method": STEPS[0].method, "effort": 2.0},
+        "t000_w012 adsorption p3": {"step": 1, "method": STEPS[0].method, "effort": 2.0},
+    }
+    lines = refinement_lines({"rounds": [], "points_rerun": rerun, "stop": "target met"})
+    (line,) = [x for x in lines if x.startswith("points rerun, by the method")]
+    assert "auto insertion 2x x2" in line and "certified tempering 1x x1" in line
+    assert not any("by the method" in x for x in refinement_lines({"rounds": []}))
 
 
 # --- tasks -----------------------------------------------------------------------------------

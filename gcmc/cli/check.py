@@ -196,7 +196,7 @@ def validate_common(args: argparse.Namespace, target: Any = None) -> None:
     _positive("noise-rel", args.noise_rel, allow_zero=True)
     _positive("noise-abs-mmol-cm3", args.noise_abs_mmol_cm3, allow_zero=True)
     if args.target_rel_stderr is None:
-        args.target_rel_stderr = target.target_rel_error if target else 0.02
+        args.target_rel_stderr = target.target_rel_stderr if target else 0.02
     if args.noise_rel is None:
         args.noise_rel = target.noise_rel if target else 0.01
     if args.noise_abs_mmol_cm3 is None:

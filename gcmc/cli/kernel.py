@@ -287,6 +287,15 @@ def refinement_lines(ref: dict, details: int = 8) -> list[str]:
         whys = Counter(a["why"].split(":", 1)[0] for a in added)
         for why, count in whys.most_common(3):
             out.append(f"  widths for {why} (x{count})")
+    final = Counter(
+        f"{x.get('method', '?')} {x.get('effort', float('nan')):g}x"
+        for x in ref.get("points_rerun", {}).values()
+    )
+    if final:
+        out.append(
+            "points rerun, by the method that produced them: "
+            + ", ".join(f"{k} x{v}" for k, v in final.most_common())
+        )
     still = ref.get("still_failing", [])
     out.append(f"still failing: {len(still)}" + ("" if still else " (none)"))
     out += [f"  {line}" for line in still[:details]]

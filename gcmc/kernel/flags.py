@@ -2,9 +2,15 @@
 
 A point's flags are stored in the kernel file (``/points/<branch>/flags``) as one string:
 flags joined by ``"; "``; each flag is its kind, optionally an index ``[r]`` naming the
-replica, and optionally ``": "`` and a detail (``"drift[1]: first vs second half z = 4.1"``).
-The kind decides the meaning and whether the point is unconverged; nothing else matches flag
-text. The standard library only (the kernel reader imports it).
+replica (for the certificate's flags: the preparation, ``[below]``), and optionally ``": "``
+and a detail (``"drift[1]: first vs second half z = 4.1"``). The kind decides the meaning and
+whether the point is unconverged; nothing else matches flag text. The standard library only
+(the kernel reader imports it).
+
+Two samplers write them: the point-wise sampler (:mod:`gcmc.sampling.point`, the flags from
+:data:`DRIFT` to :data:`TARGET_NOT_REACHED`) and the certificate of a filled point
+(:mod:`gcmc.sampling.certificate`, :data:`CERTIFICATE_FLAGS`), which the escalation of a
+quality-target build reaches for dense subcritical points.
 """
 
 from __future__ import annotations
@@ -76,6 +82,46 @@ INACCESSIBLE = Flag(
     False,
 )
 
+# --- the certificate of a filled point (gcmc.sampling.certificate) --------------------------
+PREPARATIONS_DISAGREE = Flag(
+    "preparations_disagree",
+    "certificate: the independent preparations' densities spread beyond the tolerance "
+    "(default 1 %)",
+    True,
+)
+PREPARATION_DRIFT = Flag(
+    "preparation_drift",
+    "certificate: a preparation failed the drift test (first vs second half); the index "
+    "names the preparation",
+    True,
+)
+FEW_RENEWALS = Flag(
+    "few_renewals",
+    "certificate: a preparation's content was renewed fewer times than required (hot-rung "
+    "arrivals plus exchanges per molecule); the index names the preparation",
+    True,
+)
+BOX_SIZE_DISAGREES = Flag(
+    "box_size_disagrees",
+    "certificate: the larger lateral box gives a density beyond the tolerance (default 1 %) "
+    "from the preparations' mean",
+    True,
+)
+BUDGET_SPENT = Flag(
+    "budget_spent",
+    "certificate: the CPU budget ran out before the certificate held",
+    True,
+)
+
+#: The flags the certificate of a filled point may carry.
+CERTIFICATE_FLAGS: tuple[Flag, ...] = (
+    PREPARATIONS_DISAGREE,
+    PREPARATION_DRIFT,
+    FEW_RENEWALS,
+    BOX_SIZE_DISAGREES,
+    BUDGET_SPENT,
+)
+
 #: Every flag kind, in the order documented.
 FLAGS: tuple[Flag, ...] = (
     DRIFT,
@@ -86,13 +132,26 @@ FLAGS: tuple[Flag, ...] = (
     TOO_FEW_SAMPLES,
     TARGET_NOT_REACHED,
     INACCESSIBLE,
+    *CERTIFICATE_FLAGS,
 )
 BY_NAME: dict[str, Flag] = {f.name: f for f in FLAGS}
 
 
-def flag_text(flag: Flag, replica: int | None = None, detail: str = "") -> str:
-    """The text of one flag: ``kind[replica]: detail`` (index and detail optional)."""
-    text = flag.name if replica is None else f"{flag.name}[{int(replica)}]"
+def _index(replica: int | str) -> str:
+    return replica if isinstance(replica, str) else str(int(replica))
+
+
+def flag_text(flag: Flag, replica: int | str | None = None, detail: str = "") -> str:
+    """The text of one flag: ``kind[replica]: detail`` (index and detail optional; the index
+    is a replica number, or a preparation's name for the certificate's flags). A ``";"``
+    inside the index or the detail, which would split the flag when stored, is written as
+    ``","``; ``"]"`` and ``":"`` inside the index as ``")"`` and ``","``."""
+    if replica is None:
+        text = flag.name
+    else:
+        index = _index(replica).replace(";", ",").replace("]", ")").replace(":", ",")
+        text = f"{flag.name}[{index}]"
+    detail = detail.replace(";", ",")
     return f"{text}: {detail}" if detail else text
 
 
@@ -118,15 +177,16 @@ def lookup(name: str) -> Flag | None:
     return BY_NAME.get(name)
 
 
-def has_flag(flags: str | Iterable[str], flag: Flag, replica: int | None = None) -> bool:
-    """Whether the point's flags contain ``flag`` (for one replica, if ``replica`` is given)."""
+def has_flag(flags: str | Iterable[str], flag: Flag, replica: int | str | None = None) -> bool:
+    """Whether the point's flags contain ``flag`` (for one replica or preparation, if
+    ``replica`` is given)."""
     for s in split(flags):
         if kind(s) != flag.name:
             continue
         if replica is None:
             return True
         head = s.split(":", 1)[0].strip()
-        if head == f"{flag.name}[{int(replica)}]":
+        if head == f"{flag.name}[{_index(replica)}]":
             return True
     return False
 
@@ -163,6 +223,7 @@ def join(flags: Iterable[str]) -> str:
 
 
 __all__ = [
+    "CERTIFICATE_FLAGS",
     "FLAGS",
     "SEPARATOR",
     "Flag",

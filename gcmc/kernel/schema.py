@@ -729,8 +729,9 @@ def render_markdown() -> str:
     lines += ["", "### Point flags", ""]
     lines.append(
         'A point\'s `flags` joins its flags with `"; "`; each starts with its kind, an index '
-        "`[r]` names the replica, and a colon precedes the detail. `converged = 0` exactly "
-        "when a flag that makes a point unconverged is present."
+        "`[r]` names the replica (in the certificate's flags, the preparation), and a colon "
+        "precedes the detail. `converged = 0` exactly when a flag that makes a point "
+        "unconverged is present."
     )
     lines += ["", "| flag | makes unconverged | meaning |", "|---|---|---|"]
     for fl in _flags.FLAGS:

@@ -433,11 +433,14 @@ def _refine_rounds(result: BuildResult, pool, rank: int, size: int, progress: bo
                 "step": t.step,
                 "method": step(t.step).method,
                 "effort": step(t.step).effort,
+                **({"cpu_budget_s": t.cpu_budget_s} if step(t.step).point_method else {}),
             }
             for (ti, j, b, k), t in sorted(layout.overrides.items())
         },
         "escalation": "point reruns: cold start at the step's method and effort "
-        "(gcmc.pipeline.escalation.STEPS); every other point: the config's ladder",
+        "(gcmc.pipeline.escalation.STEPS), then for dense subcritical points only the "
+        "certificate of a filled point (gcmc.pipeline.escalation.CERTIFIED, "
+        "'certified tempering'); every other point: the config's ladder",
     }
     return layout, {"refinement": refinement}
 

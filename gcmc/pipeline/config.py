@@ -107,7 +107,12 @@ class RunConfig:
         """Hash of everything that changes the kernel's data (not the output folder)."""
         canon = self._canon()
         if self.target is not None:
-            canon["target"] = self.target.to_dict()
+            # the point-error target keeps its key from before the rename to
+            # target_rel_stderr, so that configs built before keep their hash
+            canon["target"] = {
+                ("target_rel_error" if k == "target_rel_stderr" else k): v
+                for k, v in self.target.to_dict().items()
+            }
         blob = json.dumps(canon, sort_keys=True, default=str).encode()
         return hashlib.sha256(blob).hexdigest()
 
@@ -295,6 +300,25 @@ def _widths(where: str, table: Any, sigma_ss: float) -> list[float]:
     return out
 
 
+def _target_rel_stderr(f: _Fields, default: float) -> float:
+    """``[target] target_rel_stderr`` (the name of ``gcmc check --target-rel-stderr`` and of
+    ``[sampling] target_rel_stderr``); the old key ``target_rel_error`` is still read, with a
+    warning."""
+    if "target_rel_error" in f.table:
+        if "target_rel_stderr" in f.table:
+            raise InputError(
+                f"{f.where}.target_rel_error: give target_rel_stderr only "
+                "(target_rel_error is its old name)"
+            )
+        warnings.warn(
+            f"{f.where}.target_rel_error: deprecated key; write target_rel_stderr",
+            FutureWarning,
+            stacklevel=3,
+        )
+        return f.number("target_rel_error", default)  # type: ignore[return-value]
+    return f.number("target_rel_stderr", default)  # type: ignore[return-value]
+
+
 def _replica_exchange(sf: _Fields, default: bool) -> bool:
     """``[sampling] replica_exchange``; the old key ``exchange`` is still read, with a
     warning (it named replica swaps, easily confused with reservoir exchanges)."""
@@ -451,6 +475,7 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         sample_every=sf.integer("sample_every", d.sample_every, 1),
         insertion_trials=sf.integer("insertion_trials", d.insertion_trials, 0),
         biased_trials=sf.integer("biased_trials", d.biased_trials, 2),
+        bias_threshold=sf.number("bias_threshold", d.bias_threshold),  # type: ignore[arg-type]
         replicas=sf.integer("replicas", d.replicas, 1),
         target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
         max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),
@@ -536,7 +561,7 @@ def _target(where: str, table: Any) -> QualityTarget:
             "noise_abs_mmol_cm3", d.noise_abs_mmol_cm3, positive=False
         ),
         pressures_Pa=None if pressures is None else tuple(float(x) for x in pressures),
-        target_rel_error=f.number("target_rel_error", d.target_rel_error),  # type: ignore[arg-type]
+        target_rel_stderr=_target_rel_stderr(f, d.target_rel_stderr),
         width_tolerance=f.number("width_tolerance", d.width_tolerance),  # type: ignore[arg-type]
         cpu_hours=f.number("cpu_hours", d.cpu_hours),  # type: ignore[arg-type]
         cpu_hours_per_point=f.number("cpu_hours_per_point", None),

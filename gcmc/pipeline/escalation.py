@@ -5,15 +5,33 @@ A point of a pressure ladder that is unconverged, flagged, above the error targe
 exact Henry law or an outlier between widths is rerun alone (a cold start: the first replica
 from an empty pore, the second over-filled, so that the two bracket the answer) at the next
 step of :data:`STEPS`: first longer runs, then the next sampling method the sampler offers
-(biased insertion from the start, then a third replica). Each rerun has its own random stream,
-derived from the config's seed and the rerun's coordinates (width, branch, point, step), so
-a rerun is as reproducible as the ladder it replaces a point of. A point that still fails
-after the last step, or whose next step would exceed the per-point budget, is reported, not
-rerun again.
+(biased insertion from the start, then a third replica).
+
+A **dense subcritical** point (below the probe's critical temperature, pore filled beyond
+:data:`gcmc.sampling.certificate.DENSE_FILLING`: :func:`is_dense_point`) has one step more
+after those, :data:`CERTIFIED`: the certificate of a filled point
+(:func:`gcmc.sampling.certificate.certify_filled_point`, method ``"certified-tempering"`` of
+its POINT_METHODS): four independent hyper-parallel tempering preparations that must agree
+within 1 %, renew their content and pass a box-size check. Its CPU budget is what the point's
+earlier reruns left of the target's per-point budget (``cpu_budget_s`` of the rerun's
+:class:`gcmc.pipeline.tasks.Task`, set by the planner); its moves per rung are the config's,
+doubled by the certificate while the budget allows. Every other point (supercritical, or
+not filled) escalates through :data:`STEPS` only, exactly as without this step:
+:func:`steps_for` and :func:`last_step` say which steps a point has.
+
+Each rerun has its own random stream, derived from the config's seed and the rerun's
+coordinates (width, branch, point, step: :func:`gcmc.pipeline.tasks.task_seed`), so a rerun is
+as reproducible as the ladder it replaces a point of (the certified step stops by CPU time,
+so how many attempts it makes depends on the machine; the task file, once written, is what
+the kernel is assembled from). A point that still fails after its last step, or whose next
+step would exceed the per-point budget, is reported, not rerun again. The task file of every
+step holds the same fields (``point/<field>``, seconds, CPU seconds, and the method in its
+meta), so the kernel's provenance and ``gcmc show`` name the method that produced the point.
 """
 
 from __future__ import annotations
 
+import functools
 import time
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -25,29 +43,38 @@ from gcmc.kernel.data import POINT_FIELDS
 
 if TYPE_CHECKING:
     from gcmc.pipeline.tasks import BuildPlan, Task
+    from gcmc.sampling.certificate import CertifySettings
     from gcmc.sampling.point import SamplingSettings
 
 
 @dataclass(frozen=True)
 class Step:
     """One escalation step: a sampling method and the effort (multiple of the config's
-    equilibration and production moves)."""
+    equilibration and production moves; for the certified step, per rung of each chain)."""
 
-    method: str  # "auto insertion", "biased insertion" or "biased insertion, 3 replicas"
+    method: str  # "auto insertion", "biased insertion", "biased insertion, 3 replicas", ...
     effort: float
     replicas: int = 0  # 0: the config's
+    #: the name of the point method in gcmc.sampling.certificate.POINT_METHODS ("": the
+    #: point-wise sampler, gcmc.sampling.point.simulate_point)
+    point_method: str = ""
 
     @property
     def cost_factor(self) -> float:
-        """Cost relative to one point of the config's ladder (replicas cost in proportion)."""
+        """Cost relative to one point of the config's ladder (replicas cost in proportion;
+        the certified step: its first attempt, :func:`certified_cost_factor`)."""
+        if self.point_method:
+            return self.effort * certified_cost_factor()
         return self.effort * (max(self.replicas, 2) / 2.0)
 
     def describe(self) -> str:
+        """The step in words (for findings and the build's log)."""
+        if self.point_method:
+            return f"{self.method}, {self.effort:g}x moves per rung"
         return f"{self.method}, {self.effort:g}x moves"
 
 
-#: the escalation ladder; step s (1-based) is STEPS[s - 1]. A better sampler (e.g. a
-#: flat-histogram method for frozen dense phases) plugs in here as a further step.
+#: the escalation ladder of every point; step s (1-based) is STEPS[s - 1]
 STEPS: tuple[Step, ...] = (
     Step("auto insertion", 2.0),
     Step("auto insertion", 4.0),
@@ -55,13 +82,71 @@ STEPS: tuple[Step, ...] = (
     Step("biased insertion, 3 replicas", 8.0, replicas=3),
 )
 
+
+@functools.cache
+def certified_cost_factor() -> float:
+    """The first attempt of the certificate (its default chains) in ladder points at the
+    config's moves: four preparations of hot_rungs + 1 rungs each, the larger box's
+    ceil(hot_rungs x box_scale) + 1 rungs (moves cost about the same in either box: the
+    neighbours within the cutoff do not grow with the box), and the annealed preparation's
+    cooling path (about one equilibration per rung, counted as a full rung here), over the
+    two replicas of a ladder point."""
+    import math
+
+    from gcmc.sampling.certificate import PREPARATIONS, CertifySettings
+
+    cs = CertifySettings()
+    rungs = cs.hot_rungs + 1
+    big = math.ceil(cs.hot_rungs * cs.box_scale) + 1
+    return (len(PREPARATIONS) * rungs + big + rungs) / 2.0
+
+
+#: the last step of a dense subcritical point only (module docstring): the certificate
+CERTIFIED = Step(
+    "certified tempering",
+    1.0,
+    replicas=1,
+    point_method="certified-tempering",
+)
+
 #: what the config's own ladder point counts as (step 0)
 BASE = Step("ladder", 1.0)
 
 
+def steps_for(dense: bool) -> tuple[Step, ...]:
+    """The escalation steps of a point: :data:`STEPS`, and :data:`CERTIFIED` after them for
+    a dense subcritical point (``dense``: :func:`is_dense_point`)."""
+    return (*STEPS, CERTIFIED) if dense else STEPS
+
+
+def last_step(dense: bool) -> int:
+    """The index of a point's last escalation step (a wanted step beyond it: given up)."""
+    return len(steps_for(dense))
+
+
 def step(index: int) -> Step:
-    """Step ``index`` (0: the ladder itself)."""
-    return BASE if index == 0 else STEPS[index - 1]
+    """Step ``index`` (0: the ladder itself; len(STEPS) + 1: :data:`CERTIFIED`, which only
+    dense subcritical points reach)."""
+    if index == 0:
+        return BASE
+    if index == len(STEPS) + 1:
+        return CERTIFIED
+    return STEPS[index - 1]
+
+
+def is_dense_point(
+    temperature_K: float, probe: dict, density_per_nm3: float, geometry: str = "slit"
+) -> bool:
+    """Whether a kernel point is dense subcritical: the certificate's own predicate
+    (:func:`gcmc.sampling.certificate.is_dense_subcritical`) on the kernel's numbers: the
+    probe (a kernel's ``probe`` dict: ``critical_temperature_K``, ``sigma_nm``), the point's
+    temperature and pore density (per pore volume, as the kernel stores it). A probe without
+    a critical temperature is never dense subcritical; a NaN density neither."""
+    from gcmc.sampling.certificate import dense_subcritical_state
+
+    tc = float(probe.get("critical_temperature_K", float("nan")))
+    sigma = float(probe.get("sigma_nm", float("nan")))
+    return dense_subcritical_state(geometry, temperature_K, tc, sigma, float(density_per_nm3))
 
 
 def step_settings(base: SamplingSettings, index: int) -> SamplingSettings:
@@ -84,16 +169,42 @@ def step_settings(base: SamplingSettings, index: int) -> SamplingSettings:
 
 
 def first_step_with_effort(current: int, effort: float) -> int:
-    """The first step after ``current`` whose effort is at least ``effort`` (the last step
-    if none is; len(STEPS) + 1 when ``current`` is already the last)."""
+    """The first step of :data:`STEPS` after ``current`` whose effort is at least ``effort``
+    (the last of STEPS if none is); ``current + 1`` when ``current`` is already the last of
+    STEPS or beyond: the certified step for a dense subcritical point, given up for any other
+    (the caller compares with :func:`last_step`)."""
     for i in range(current + 1, len(STEPS) + 1):
         if step(i).effort >= effort:
             return i
-    return len(STEPS) if current < len(STEPS) else len(STEPS) + 1
+    return len(STEPS) if current < len(STEPS) else current + 1
+
+
+def certify_settings(base: SamplingSettings, budget_cpu_s: float) -> CertifySettings:
+    """The certificate's settings at the certified step: the config's moves per rung
+    (equilibration, production, sampling interval, insertion method, over-fill) times the
+    step's effort, and the CPU budget; every other field the certificate's default."""
+    from gcmc.sampling.certificate import CertifySettings
+
+    e = CERTIFIED.effort
+    return CertifySettings(
+        equilibration_moves=int(round(base.equilibration_moves * e)),
+        production_moves=int(round(base.production_moves * e)),
+        sample_every=base.sample_every,
+        overfill_factor=base.overfill_factor,
+        insertion_trials=base.insertion_trials,
+        budget_cpu_s=float(budget_cpu_s),
+    )
 
 
 def run_point_task(plan: BuildPlan, task: Task) -> Path:
-    """Rerun one point (a cold start at the task's escalation step); write its task file."""
+    """Rerun one point (a cold start at the task's escalation step); write its task file.
+
+    At the certified step (``task.step == len(STEPS) + 1``) the point is certified instead
+    (:func:`gcmc.sampling.certificate.certify_filled_point`, by its POINT_METHODS name) with
+    :func:`certify_settings` and the CPU budget ``task.cpu_budget_s`` (the target's per-point
+    budget when the task carries none); the task file has the same fields, its meta the
+    method and a summary of the certificate.
+    """
     from gcmc.physics.henry import pore_limit
     from gcmc.pipeline.tasks import (
         BRANCHES,
@@ -110,11 +221,41 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
     model = pore_model(cfg, task.w_index, task.width_H_nm(cfg))
     k = task.point
     state = point_state(cfg, tp, k)
-    settings = step_settings(cfg.sampling, task.step)
+    s = step(task.step)
+    extra: dict = {}
     t0, c0 = time.perf_counter(), time.process_time()
-    out = simulate_point(model, state, settings, task_seed(cfg, task), start=None)
+    if s.point_method:
+        from gcmc.physics.eos import make_eos
+        from gcmc.sampling.certificate import POINT_METHODS
+
+        budget = task.cpu_budget_s
+        if not budget > 0.0:
+            budget = cfg.target.cpu_seconds_per_point if cfg.target is not None else 0.0
+        if not budget > 0.0:
+            raise ValueError(f"task {task.key}: the certified step needs a CPU budget > 0")
+        cs = certify_settings(cfg.sampling, budget)
+        eos = make_eos(cfg.eos, cfg.probe)
+        cert = POINT_METHODS[s.point_method](model, state, task_seed(cfg, task), cs, eos)
+        r = cert.result
+        extra = {
+            "point_method": s.point_method,
+            "cpu_budget_s": float(budget),
+            "certificate": {
+                "certified": bool(cert.certified),
+                "density_spread_rel": float(cert.density_spread_rel),
+                "box_difference_rel": float(cert.box_difference_rel),
+                "min_renewals": int(cert.min_renewals),
+                "production_moves_per_rung": int(cert.production_moves),
+                "preparations": {
+                    p.name: float(p.density_per_nm3)
+                    for p in [*cert.preparations, *([cert.box_check] if cert.box_check else [])]
+                },
+            },
+        }
+    else:
+        settings = step_settings(cfg.sampling, task.step)
+        r = simulate_point(model, state, settings, task_seed(cfg, task), start=None).result
     seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
-    r = out.result
     arrays: dict[str, np.ndarray] = {}
     for name in POINT_FIELDS:
         arrays[f"point/{name}"] = np.array(float(point_field(r, name)))
@@ -126,12 +267,13 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
         "branch": BRANCHES[task.branch],
         "point": k,
         "step": task.step,
-        "method": step(task.step).method,
-        "effort": step(task.step).effort,
+        "method": s.method,
+        "effort": s.effort,
         "flags": "; ".join(r.flags),
         "seconds": seconds,
         "seed_entropy": int(cfg.seed),
         "spawn_key": list(task.spawn_key()),
+        **extra,
     }
     import json
 

@@ -18,11 +18,18 @@ at every temperature and accessible width:
 * **points**: unconverged or flagged points, points above the error target (the effort grows
   as (error / target)^2), the lowest point of an isotherm off the exact Henry law, and
   outliers between widths (the check's rule, warn level) are rerun at the next escalation step
-  (:mod:`gcmc.pipeline.escalation`). An outlier that resampling confirmed (its rerun still an
-  outlier) is structure, not noise: the intervals on both sides get new widths instead.
+  (:mod:`gcmc.pipeline.escalation`). A dense subcritical point (:func:`dense_point`: below
+  the probe's critical temperature and filled, by its current density) has one step more
+  after the others: the certificate of a filled point ("certified tempering"), with what the
+  point's earlier reruns left of the per-point budget as its CPU budget (given up when its
+  first attempt would not fit); any other point's steps, and so a supercritical build's
+  rounds, are those of :data:`gcmc.pipeline.escalation.STEPS` only. An outlier that
+  resampling confirmed (its rerun still an outlier) is structure, not noise: the intervals on
+  both sides get new widths instead.
 * **budget**: tasks are taken in priority order (unconverged points, Henry, error target,
   outliers, then intervals by their error) while the CPU seconds spent plus the estimated cost
-  (measured cost of neighbouring tasks) fit the budget; the rest is reported as cut by it.
+  (measured cost of neighbouring tasks; for a certified step its whole CPU budget) fit the
+  budget; the rest is reported as cut by it.
 """
 
 from __future__ import annotations
@@ -36,7 +43,7 @@ import numpy as np
 from gcmc.kernel.data import KernelData
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.pipeline.assemble import Layout
-from gcmc.pipeline.escalation import STEPS, first_step_with_effort, step
+from gcmc.pipeline.escalation import first_step_with_effort, is_dense_point, last_step, step
 from gcmc.pipeline.tasks import BRANCHES, Task, added_width_task
 from gcmc.quality.criteria import (
     GAP_SIGMA,
@@ -271,15 +278,15 @@ def point_findings(
         for j in np.flatnonzero(data.accessible[t]):
             for k in np.flatnonzero(np.isfinite(n[t, j]) & np.isfinite(s[t, j])):
                 rel = s[t, j, k] / max(n[t, j, k], floor)
-                if rel <= target.target_rel_error:
+                if rel <= target.target_rel_stderr:
                     continue
                 key = (t, int(j), 0, int(k))
                 cur = current(key)
-                need = step(cur).effort * EFFORT_MARGIN * (rel / target.target_rel_error) ** 2
+                need = step(cur).effort * EFFORT_MARGIN * (rel / target.target_rel_stderr) ** 2
                 add(
                     "error",
                     key,
-                    f"relative error {rel:.3g} > {target.target_rel_error:g}",
+                    f"relative error {rel:.3g} > {target.target_rel_stderr:g}",
                     first_step_with_effort(cur, need),
                 )
     # outliers between widths (the check's warn rule)
@@ -313,6 +320,15 @@ def point_findings(
                 if bad.size >= STRUCTURE_POINTS and out[-1][1] == key:
                     out[-1][0].structure = True
     return out
+
+
+def dense_point(data: KernelData, key: tuple[int, int, int, int]) -> bool:
+    """Whether point ``key`` = (t, j, branch, k) of a kernel is dense subcritical (its
+    current density; :func:`gcmc.pipeline.escalation.is_dense_point`): only such a point has
+    the certified escalation step."""
+    t, j, b, k = key
+    n = float(data.points[BRANCHES[b]]["density_per_nm3"][t, j, k])
+    return is_dense_point(float(data.temperatures_K[t]), data.probe, n)
 
 
 def _ladder_cpu(costs: dict[str, float], task: Task) -> float:
@@ -393,15 +409,29 @@ def plan_round(
             for mid in mids:
                 cands.append(((5, -1e9, mid), base * n_p, ("width", mid, f.line())))
             continue
-        if wanted > len(STEPS):
+        last = last_step(dense_point(data, key))
+        if wanted > last:
             f.action = "given_up"
-            f.detail += (
-                f"; still failing after the last escalation step ({step(len(STEPS)).describe()})"
-            )
+            f.detail += f"; still failing after the last escalation step ({step(last).describe()})"
             rp.findings.append(f)
             continue
         cost = base * step(wanted).cost_factor
-        if point_spent.get(key, 0.0) + cost > target.cpu_seconds_per_point:
+        budget = 0.0
+        if step(wanted).point_method:
+            # the certified step: what the earlier reruns left of the per-point budget, if
+            # its first attempt fits in it
+            left = target.cpu_seconds_per_point - point_spent.get(key, 0.0)
+            if cost > left:
+                f.action = "given_up"
+                f.detail += (
+                    f"; step {wanted} ({step(wanted).describe()}, first attempt ~{cost:.0f} "
+                    f"CPU-s) would exceed what is left of the per-point budget "
+                    f"({left:.0f} of {target.cpu_seconds_per_point:.0f} CPU-s)"
+                )
+                rp.findings.append(f)
+                continue
+            cost = budget = left
+        elif point_spent.get(key, 0.0) + cost > target.cpu_seconds_per_point:
             f.action = "given_up"
             f.detail += (
                 f"; step {wanted} ({step(wanted).describe()}, ~{cost:.0f} CPU-s) would exceed "
@@ -417,8 +447,11 @@ def plan_round(
             point=k,
             branch=b,
             step=wanted,
+            cpu_budget_s=budget,
         )
         f.detail += f"; rerun: {step(wanted).describe()}"
+        if budget:
+            f.detail += f", budget {budget:.0f} CPU-s"
         rp.findings.append(f)
         cands.append(((PRIORITY[f.kind], t, j, b, k), cost, ("rerun", task, key, f)))
     for f, new, (j0, j1) in gap_findings(data, target, ts):

@@ -61,7 +61,9 @@ class Task:
 
     ``w_index`` indexes the config's widths; a width added by refinement has ``w_index = -1``
     and ``h_code`` = H / H_CODE_NM. A point rerun has ``point >= 0`` (index on the pressure
-    axis), its ``branch`` (0 adsorption, 1 desorption) and ``step`` (1, 2, ...)."""
+    axis), its ``branch`` (0 adsorption, 1 desorption) and ``step`` (1, 2, ...); a rerun at
+    the certified step carries its CPU budget ``cpu_budget_s`` (set by the planner; not part
+    of the key nor of the random stream)."""
 
     t_index: int
     w_index: int
@@ -70,6 +72,7 @@ class Task:
     point: int = -1
     branch: int = 0
     step: int = 0
+    cpu_budget_s: float = 0.0
 
     @property
     def width_key(self) -> str:

@@ -19,7 +19,7 @@ from gcmc.errors import InputError
 #: defaults; the noise and the point-error target are the check's own defaults
 DEFAULT_NOISE_REL = 0.01
 DEFAULT_NOISE_ABS_MMOL_CM3 = 0.01
-DEFAULT_TARGET_REL_ERROR = 0.02
+DEFAULT_TARGET_REL_STDERR = 0.02
 #: interpolation in width may err by this fraction of the experiment's noise (on top of the
 #: statistical allowance the check grants); below 1 so that a refined kernel passes the check
 DEFAULT_WIDTH_TOLERANCE = 0.5
@@ -42,8 +42,9 @@ class QualityTarget:
         mmol per cm3 of pore volume (as ``gcmc check --noise-rel/--noise-abs-mmol-cm3``).
     pressures_Pa : tuple of float or None
         The experiment's pressures (Pa); None: the kernel's own.
-    target_rel_error : float
-        Target relative standard error of a point (as ``gcmc check --target-rel-error``).
+    target_rel_stderr : float
+        Target relative standard error of a point (as ``gcmc check --target-rel-stderr``;
+        the config key's old name ``target_rel_stderr`` is still read).
     width_tolerance : float
         Allowed mid-interval error of linear interpolation in width, as a fraction of the
         experiment's noise at that loading (added to the check's statistical allowance).
@@ -62,7 +63,7 @@ class QualityTarget:
     noise_rel: float = DEFAULT_NOISE_REL
     noise_abs_mmol_cm3: float = DEFAULT_NOISE_ABS_MMOL_CM3
     pressures_Pa: tuple[float, ...] | None = None
-    target_rel_error: float = DEFAULT_TARGET_REL_ERROR
+    target_rel_stderr: float = DEFAULT_TARGET_REL_STDERR
     width_tolerance: float = DEFAULT_WIDTH_TOLERANCE
     cpu_hours: float = DEFAULT_CPU_HOURS
     cpu_hours_per_point: float | None = None
@@ -83,7 +84,7 @@ class QualityTarget:
             raise InputError(
                 f"{where}.noise_rel: noise_rel and noise_abs_mmol_cm3 cannot both be 0"
             )
-        for name in ("target_rel_error", "width_tolerance", "cpu_hours", "min_spacing_nm"):
+        for name in ("target_rel_stderr", "width_tolerance", "cpu_hours", "min_spacing_nm"):
             v = getattr(self, name)
             if not (math.isfinite(v) and v > 0.0):
                 raise InputError(f"{where}.{name}: must be finite and > 0, got {v!r}")
@@ -136,10 +137,12 @@ class QualityTarget:
         if not isinstance(d, dict):
             raise InputError(f"{where}: expected a table")
         known = set(cls.__dataclass_fields__)
-        extra = set(d) - known
+        extra = set(d) - known - {"target_rel_error"}
         if extra:
             raise InputError(f"{where}.{sorted(extra)[0]}: unknown field")
         kw = dict(d)
+        if "target_rel_error" in kw:  # kernels built before the rename
+            kw.setdefault("target_rel_stderr", kw.pop("target_rel_error"))
         if kw.get("pressures_Pa") is not None:
             kw["pressures_Pa"] = tuple(float(x) for x in kw["pressures_Pa"])
         t = cls(**kw)
@@ -156,7 +159,7 @@ class QualityTarget:
         )
         return (
             f"noise sqrt(({self.noise_rel:g} n)^2 + ({self.noise_abs_mmol_cm3:g} mmol/cm3)^2) "
-            f"on {p}; point error <= {self.target_rel_error:g}; width interpolation <= "
+            f"on {p}; point error <= {self.target_rel_stderr:g}; width interpolation <= "
             f"{self.width_tolerance:g} x noise; budget {self.cpu_hours:g} CPU-h "
             f"({self.cpu_hours_per_point:.3g} per point); min spacing "
             f"{self.min_spacing_nm:g} nm; {self.max_rounds} round(s) at most"
@@ -175,7 +178,7 @@ def check_settings(target: QualityTarget, **overrides: Any) -> Any:
     from gcmc.quality.resolution import NoiseModel
 
     kw: dict[str, Any] = {
-        "target_rel_stderr": target.target_rel_error,
+        "target_rel_stderr": target.target_rel_stderr,
         "noise": NoiseModel(target.noise_rel, target.noise_abs_mmol_cm3),
         "pressures_Pa": target.pressures_array(),
     }

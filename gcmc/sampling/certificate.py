@@ -28,9 +28,12 @@ needs k >= (d_4 sd(N) / (tolerance mean))^2; at least MIN_RENEWALS_FLOOR = 3 are
 case ("several", and enough to tell a renewal from a lucky swap). When sd(N) is tiny (a
 frozen packing) the floor decides.
 
-Points that fail stay uncertified, with the reasons in ``flags`` (names in CERTIFICATE_FLAGS,
-the one list of this module's flags). The escalation of a build calls
-:func:`certify_filled_point` by the method name ``"certified-tempering"`` of POINT_METHODS.
+Points that fail stay uncertified, with the reasons in ``flags``: the kinds of
+:data:`gcmc.kernel.flags.CERTIFICATE_FLAGS`, defined with every other point flag in
+:mod:`gcmc.kernel.flags` (the kernel's one table of flags). The escalation of a
+quality-target build (:mod:`gcmc.pipeline.escalation`) calls :func:`certify_filled_point` by
+the method name ``"certified-tempering"`` of POINT_METHODS, as its last step for dense
+subcritical points.
 """
 
 from __future__ import annotations
@@ -43,6 +46,7 @@ from typing import Any
 
 import numpy as np
 
+from gcmc.kernel import flags as fl
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.physics.potentials import with_lateral_box
 from gcmc.sampling.point import PointResult, SamplingSettings, ThermoState, simulate_point
@@ -51,16 +55,6 @@ from gcmc.sampling.tempering import TemperingOutcome, hot_chain_temperatures, si
 #: expected range of 4 independent normal samples, in standard deviations (d_2, n = 4)
 D2_FOUR = 2.059
 MIN_RENEWALS_FLOOR = 3
-
-#: the flags a certificate may carry (one place; each flag string starts with its name)
-CERTIFICATE_FLAGS = {
-    "preparations_disagree": "the preparations' densities spread beyond the tolerance",
-    "preparation_drift": "a preparation failed the drift test (first vs second half)",
-    "few_renewals": "a preparation's content was renewed fewer times than required",
-    "box_size_disagrees": "the larger lateral box gives a different density",
-    "budget_spent": "the CPU budget ran out before the certificate held",
-    "not_dense": "the state is not a dense subcritical one: no certificate is needed",
-}
 
 
 @dataclass(frozen=True)
@@ -153,10 +147,29 @@ def is_dense_subcritical(model: PoreModel, temperature_K: float, density_per_nm3
     """Whether a point needs the certified path: a slit below the probe's critical temperature
     whose pore density (per pore volume) times sigma^3 exceeds DENSE_FILLING (liquid- or
     solid-like)."""
-    tc = model.probe.critical_temperature_K
-    if model.geometry != SLIT or not math.isfinite(tc) or temperature_K >= tc:
+    return dense_subcritical_state(
+        model.geometry,
+        temperature_K,
+        model.probe.critical_temperature_K,
+        model.probe.sigma_nm,
+        density_per_nm3,
+    )
+
+
+def dense_subcritical_state(
+    geometry: str,
+    temperature_K: float,
+    critical_temperature_K: float,
+    sigma_nm: float,
+    density_per_nm3: float,
+) -> bool:
+    """:func:`is_dense_subcritical` on plain numbers (e.g. a kernel's probe and points): a
+    slit, T below a finite critical temperature, and density x sigma^3 > DENSE_FILLING (a NaN
+    density or sigma is not dense)."""
+    tc = critical_temperature_K
+    if geometry != SLIT or not math.isfinite(tc) or not temperature_K < tc:
         return False
-    return density_per_nm3 * model.probe.sigma_nm**3 > DENSE_FILLING
+    return bool(density_per_nm3 * sigma_nm**3 > DENSE_FILLING)
 
 
 def _hot_states(
@@ -339,9 +352,13 @@ def certify_filled_point(
         if cert.certified or spent * 3.0 > cs.budget_cpu_s:  # the next (doubled) would exceed
             if not cert.certified and spent * 3.0 > cs.budget_cpu_s:
                 cert.flags.append(
-                    f"budget_spent: {spent:.0f} CPU s after {attempt} attempt(s); the next "
-                    f"(2 x production) would exceed the {cs.budget_cpu_s:.0f} s budget"
+                    fl.flag_text(
+                        fl.BUDGET_SPENT,
+                        detail=f"{spent:.0f} CPU s after {attempt} attempt(s), the next "
+                        f"(2 x production) would exceed the {cs.budget_cpu_s:.0f} s budget",
+                    )
                 )
+                cert.result.flags = list(cert.flags)
             return cert
         production *= 2
 
@@ -364,26 +381,35 @@ def judge_preparations(
     spread = float((dens.max() - dens.min()) / mean) if mean > 0 else math.nan
     if not spread <= cs.tolerance:
         flags.append(
-            "preparations_disagree: densities "
-            + ", ".join(f"{p.name} {p.density_per_nm3:.4g}" for p in preps)
-            + f" /nm^3 spread {100 * spread:.2f} % > {100 * cs.tolerance:.2g} %"
+            fl.flag_text(
+                fl.PREPARATIONS_DISAGREE,
+                detail="densities "
+                + ", ".join(f"{p.name} {p.density_per_nm3:.4g}" for p in preps)
+                + f" /nm^3 spread {100 * spread:.2f} % > {100 * cs.tolerance:.2g} %",
+            )
         )
     for p in preps + [boxp]:
         if not p.drift_passed:
-            flags.append(f"preparation_drift[{p.name}]: z = {p.drift_z:.1f}")
+            flags.append(fl.flag_text(fl.PREPARATION_DRIFT, p.name, f"z = {p.drift_z:.1f}"))
     k_min = required_renewals(preps + [boxp], cs.tolerance)
     for p in preps + [boxp]:
         if not p.renewals >= k_min:
             flags.append(
-                f"few_renewals[{p.name}]: {p.renewals:.1f} (hot arrivals {p.renewals_hot}, "
-                f"exchanges {p.exchanges}) < {k_min}"
+                fl.flag_text(
+                    fl.FEW_RENEWALS,
+                    p.name,
+                    f"{p.renewals:.1f} (hot arrivals {p.renewals_hot}, exchanges "
+                    f"{p.exchanges}) < {k_min}",
+                )
             )
     box_diff = (boxp.density_per_nm3 - mean) / mean if mean > 0 else math.nan
     if not abs(box_diff) <= cs.tolerance:
         flags.append(
-            f"box_size_disagrees: {boxp.density_per_nm3:.4g} /nm^3 in "
-            f"{boxp.box_nm[0]:.3f} x {boxp.box_nm[1]:.3f} nm vs {mean:.4g} "
-            f"({100 * box_diff:+.2f} %)"
+            fl.flag_text(
+                fl.BOX_SIZE_DISAGREES,
+                detail=f"{boxp.density_per_nm3:.4g} /nm^3 in {boxp.box_nm[0]:.3f} x "
+                f"{boxp.box_nm[1]:.3f} nm vs {mean:.4g} ({100 * box_diff:+.2f} %)",
+            )
         )
     certified = not flags
     r0 = preps[0].result

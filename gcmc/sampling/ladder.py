@@ -281,8 +281,7 @@ class _Ladder:
             rung.counters[:] = 0
             rung.moves = 0
         target = s.target_rel_stderr
-        budget = max(s.production_moves, s.max_production_moves)
-        total = s.production_moves if target <= 0 else budget
+        total = s.production_capacity
         n_rounds = min(
             self.rounds_for(total), len(self.rungs[0].n) * s.sample_every // self.round_moves
         )
@@ -290,7 +289,7 @@ class _Ladder:
         check_every = max(1, min_rounds // CHUNKS)
         for r in range(n_rounds):
             self.run_round()
-            if target > 0 and r + 1 >= min_rounds and (r + 1) % check_every == 0:
+            if s.extends and r + 1 >= min_rounds and (r + 1) % check_every == 0:
                 if all(_target_met(rung, target) for rung in self.rungs):
                     break
 
@@ -331,7 +330,7 @@ def _target_met(rung: _Rung, target: float) -> bool:
         return False
     x = rung.n[: rung.written].astype(float)
     est = st.block_average(x)
-    if not (est.reliable and est.mean > 0 and est.stderr / est.mean <= target):
+    if not (est.reliable and est.mean > 0 and (target <= 0 or est.stderr / est.mean <= target)):
         return est.mean == 0.0 and np.ptp(x) == 0  # an empty rung has nothing to converge
     return st.drift_test(x).passed
 
@@ -383,8 +382,7 @@ def simulate_ladder(
     sorted_states = [states[k] for k in order]
     sorted_starts = [None if starts is None else starts[k] for k in order]
     ss = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
-    budget = max(settings.production_moves, settings.max_production_moves)
-    total = settings.production_moves if settings.target_rel_stderr <= 0 else budget
+    total = settings.production_capacity
     capacity = math.ceil(total / m) * (m // every)
     ladders = []
     t_start = time.perf_counter()

@@ -68,8 +68,16 @@ class SamplingSettings:
     #: whose second replica started below the first one's mean (by more than agreement_rel)
     #: is flagged not_bracketed
     overfill_factor: float = 20.0
-    #: stop production when the relative standard error of N reaches this (0: fixed length)
+    #: stop production when the relative standard error of N reaches this (0: no precision
+    #: target)
     target_rel_stderr: float = 0.0
+    #: the production budget per replica when production may extend (0: production_moves).
+    #: With a target it runs until the target is met; without one, a budget above
+    #: production_moves extends production, chunk by chunk, only while a point is not yet
+    #: certified: its block error has no plateau, its halves drift, its content was not
+    #: renewed through the reservoir, or its replicas disagree (dense points, whose
+    #: correlation time in moves grows with the number of molecules, get the moves they need;
+    #: easy points stop at production_moves)
     max_production_moves: int = 0
     #: replicas agree when |z| <= agreement_z or their means differ by <= agreement_rel
     agreement_z: float = 3.0
@@ -97,6 +105,21 @@ class SamplingSettings:
             raise InputError("sampling.replicas: must be >= 1")
         if self.target_rel_stderr < 0:
             raise InputError("sampling.target_rel_stderr: must be >= 0")
+        if not 0.0 < self.bias_threshold < 1.0:
+            raise InputError("sampling.bias_threshold: must be in (0, 1)")
+
+    @property
+    def extends(self) -> bool:
+        """Production may run past production_moves (a precision target, or a larger move
+        budget to certify a point): see max_production_moves."""
+        return self.target_rel_stderr > 0 or self.max_production_moves > self.production_moves
+
+    @property
+    def production_capacity(self) -> int:
+        """The most production moves a replica may make."""
+        if not self.extends:
+            return self.production_moves
+        return max(self.production_moves, self.max_production_moves)
 
 
 @dataclass
@@ -392,8 +415,7 @@ class _Replica:
         self.moves += eq - self.first
         # production: room for the whole move budget when stopping on a target
         every = settings.sample_every
-        budget = max(settings.production_moves, settings.max_production_moves)
-        self.total = settings.production_moves if settings.target_rel_stderr <= 0 else budget
+        self.total = settings.production_capacity
         n_samples = self.total // every
         self.out_n = np.zeros(n_samples, dtype=np.int64)
         self.out_uff = np.zeros(n_samples)
@@ -433,8 +455,9 @@ class _Replica:
         return self.box.exchanges
 
     def meets_target(self) -> tuple[bool, float, float]:
-        """(done, mean, stderr) of N so far: the target relative error is met, the drift test
-        passes and the content was renewed through the reservoir (an empty pore is done)."""
+        """(done, mean, stderr) of N so far: the error is reliable (a block-averaging
+        plateau), the target relative error (if any) is met, the drift test passes and the
+        content was renewed through the reservoir (an empty pore is done)."""
         if self.produced < self.settings.production_moves or self.written < MIN_SAMPLES_TARGET:
             return False, math.nan, math.nan
         x = self.out_n[: self.written].astype(float)
@@ -448,7 +471,10 @@ class _Replica:
         ok = (
             est.reliable
             and mean > 0
-            and err / mean <= self.settings.target_rel_stderr
+            and (
+                self.settings.target_rel_stderr <= 0
+                or err / mean <= self.settings.target_rel_stderr
+            )
             and st.drift_test(x).passed
             and not _too_few_exchanges(self.exchanges, mean)
         )
@@ -485,11 +511,13 @@ def _equilibration_cut(n: np.ndarray) -> int:
 
 def _produce_replicas(reps: list[_Replica], settings: SamplingSettings) -> None:
     """Production of all replicas of a point, in alternating chunks. With a fixed length, each
-    runs production_moves. With a target relative error, they run until every replica meets
-    it (with the drift and exchange tests) and the replicas agree (the same test as the point's
-    replicas_disagree flag), or until the move budget is spent: easy points stop early, hard
-    ones use the budget and keep their flags."""
-    target = settings.target_rel_stderr > 0
+    runs production_moves. When production may extend (``settings.extends``: a target
+    relative error, or a move budget above production_moves), they run until every replica
+    is done (:meth:`_Replica.meets_target`: reliable error, target met if any, no drift,
+    content renewed) and the replicas agree (the same test as the point's replicas_disagree
+    flag), or until the move budget is spent: easy points stop early, hard ones use the
+    budget and keep their flags."""
+    target = settings.extends
     while not all(r.exhausted for r in reps):
         for r in reps:
             r.produce(r.chunk)
