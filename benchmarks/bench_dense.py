@@ -37,8 +37,8 @@ os.environ.setdefault("NUMBA_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 from gcmc.physics.eos import make_eos  # noqa: E402
-from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe  # noqa: E402
-from gcmc.physics.potentials import default_cutoff_nm, with_lateral_box  # noqa: E402
+from gcmc.physics.model import get_probe  # noqa: E402
+from gcmc.physics.potentials import slit_pore, with_lateral_box  # noqa: E402
 from gcmc.sampling.box import warm_up  # noqa: E402
 from gcmc.sampling.certificate import (  # noqa: E402
     CertifySettings,
@@ -74,14 +74,7 @@ def _setup(name: str):
         residual_enthalpy_K=b.residual_enthalpy_K,
         eos="reference",
     )
-    model = PoreModel(
-        probe=probe,
-        solid=default_solid(),
-        geometry=SLIT,
-        cutoff_nm=default_cutoff_nm(probe),
-        box_nm=1.0,
-        width_nm=h,
-    )
+    model = slit_pore(probe, width_nm=h, box_nm=1.0)
     return model, state, eos, dense
 
 

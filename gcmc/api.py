@@ -55,19 +55,11 @@ __all__ = [
 
 
 def _jsonable(x: Any) -> Any:
-    """Plain Python values for JSON: numpy scalars and arrays unpacked, NaN and inf -> None
-    (an unavailable number)."""
-    if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
-    if isinstance(x, list | tuple):
-        return [_jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return _jsonable(x.tolist())
-    if isinstance(x, np.generic):
-        return _jsonable(x.item())
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    return x
+    """Plain Python values for JSON (:func:`gcmc.quality.criteria.jsonable`, imported when
+    first needed, as this module imports the quality layer)."""
+    from gcmc.quality.criteria import jsonable
+
+    return jsonable(x)
 
 
 # --------------------------------------------------------------------------------------------

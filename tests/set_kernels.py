@@ -33,32 +33,38 @@ def large_probe(w: float) -> np.ndarray:
     return np.array([12.0, 3e-4 * np.exp(-2.0 * (w - 0.7))])
 
 
-def make_set_kernel(
+def synthetic_kernel(
+    widths_w,
+    pressures,
     params,
-    smallest_w: float,
+    form: str,
+    inaccessible,
+    rel_err: float,
+    rng: np.random.Generator | None,
+    n_dense: int,
     name: str,
     probe: str,
-    widths=WIDTHS,
-    pressures=PRESSURES,
+    config_text: str,
+    temperature: float = T,
+    solid_sigma: float = SIGMA_SS,
     width_convention: str = "internal: w = H - sigma_ss",
     pore_volume_convention: str = "A * w (w = H - sigma_ss)",
-    solid_sigma: float = SIGMA_SS,
-    rel_err: float = REL_ERR,
-    noise_seed: int | None = None,
-    temperature: float = T,
 ) -> KernelData:
-    widths = np.asarray(widths, float)
+    """A one-temperature KernelData whose fits are the exact ``form`` isotherms of
+    ``params(w)`` and whose points sit on them with relative standard error ``rel_err``
+    (plus seeded Gaussian scatter when ``rng`` is given); widths flagged in ``inaccessible``
+    (one bool per width) are empty pores with a "zero" fit. Shared by tests/test_check.py."""
+    widths_w = np.asarray(widths_w, float)
     p = np.asarray(pressures, float)
-    nw, n_p = widths.size, p.size
+    nw, n_p = widths_w.size, p.size
     beta = 1.0 / (BOLTZMANN_J_PER_K * temperature) / NM3_PER_M3
-    rng = np.random.default_rng(noise_seed) if noise_seed is not None else None
     pts = {f: np.full((1, nw, n_p), np.nan) for f in POINT_FIELDS}
     fits, henry = [], np.zeros((1, nw))
     acc = np.ones((1, nw), bool)
-    dense_p = np.geomspace(p[0] / 100, p[-1], 30)
+    dense_p = np.geomspace(p[0] / 100, p[-1], n_dense)
     dense = np.zeros((1, nw, dense_p.size))
-    for j, w in enumerate(widths):
-        if w < smallest_w - 1e-12:
+    for j, w in enumerate(widths_w):
+        if inaccessible[j]:
             acc[0, j] = False
             pts["density_per_nm3"][0, j] = 0.0
             pts["density_per_nm3_stderr"][0, j] = 0.0
@@ -78,28 +84,29 @@ def make_set_kernel(
             )
             continue
         par = params(w)
-        exact = F.evaluate_fit("langmuir", par, p)
+        exact = F.evaluate_fit(form, par, p)
         err = rel_err * exact
         obs = exact + (err * rng.standard_normal(n_p) if rng is not None else 0.0)
         pts["density_per_nm3"][0, j] = obs
         pts["density_per_nm3_stderr"][0, j] = err
         r = (obs - exact) / err
+        dof = n_p - par.size
         fits.append(
             FitRecord(
-                "langmuir",
+                form,
                 par,
-                np.zeros((2, 2)),
+                np.zeros((par.size, par.size)),
                 float(r @ r),
-                n_p - 2,
-                float(r @ r) / (n_p - 2),
+                dof,
+                float(r @ r) / dof,
                 0.5,
                 0.0,
                 r,
                 True,
             )
         )
-        henry[0, j] = F.FORMS["langmuir"].henry_constant(par)
-        dense[0, j] = F.evaluate_fit("langmuir", par, dense_p)
+        henry[0, j] = F.FORMS[form].henry_constant(par)
+        dense[0, j] = F.evaluate_fit(form, par, dense_p)
     pts["converged"] = np.ones((1, nw, n_p), bool)
     pts["excess_density_per_nm3"][0] = pts["density_per_nm3"][0] - beta * p
     return KernelData(
@@ -123,8 +130,8 @@ def make_set_kernel(
         pore_volume_convention=pore_volume_convention,
         sampler="synthetic",
         temperatures_K=np.array([temperature]),
-        widths_H_nm=widths + solid_sigma,
-        widths_w_nm=widths,
+        widths_H_nm=widths_w + solid_sigma,
+        widths_w_nm=widths_w,
         pressures_Pa=p[None, :].copy(),
         relative_pressures=np.full((1, n_p), np.nan),
         saturation_pressures_Pa=np.array([np.nan]),
@@ -138,10 +145,44 @@ def make_set_kernel(
         above_range="clamp",
         dense_pressures_Pa=dense_p[None, :],
         dense_density_per_nm3=dense,
-        config_text="# synthetic set-test kernel (invented)",
+        config_text=config_text,
         provenance={"synthetic": True},
         task_seeds=np.zeros((1, nw, 3), np.uint64),
         task_seconds=np.zeros((1, nw)),
+    )
+
+
+def make_set_kernel(
+    params,
+    smallest_w: float,
+    name: str,
+    probe: str,
+    widths=WIDTHS,
+    pressures=PRESSURES,
+    width_convention: str = "internal: w = H - sigma_ss",
+    pore_volume_convention: str = "A * w (w = H - sigma_ss)",
+    solid_sigma: float = SIGMA_SS,
+    rel_err: float = REL_ERR,
+    noise_seed: int | None = None,
+    temperature: float = T,
+) -> KernelData:
+    widths = np.asarray(widths, float)
+    return synthetic_kernel(
+        widths,
+        pressures,
+        params,
+        "langmuir",
+        [w < smallest_w - 1e-12 for w in widths],
+        rel_err,
+        np.random.default_rng(noise_seed) if noise_seed is not None else None,
+        30,
+        name,
+        probe,
+        "# synthetic set-test kernel (invented)",
+        temperature=temperature,
+        solid_sigma=solid_sigma,
+        width_convention=width_convention,
+        pore_volume_convention=pore_volume_convention,
     )
 
 

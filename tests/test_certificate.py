@@ -13,8 +13,8 @@ import pytest
 
 from gcmc.kernel import flags as fl
 from gcmc.physics.eos import make_eos
-from gcmc.physics.model import SLIT, PoreModel, default_solid, get_probe
-from gcmc.physics.potentials import default_cutoff_nm
+from gcmc.physics.model import get_probe
+from gcmc.physics.potentials import slit_pore
 from gcmc.sampling import certificate as C
 from gcmc.sampling.point import PointResult, ThermoState
 
@@ -113,14 +113,7 @@ def _argon_state(t: float, x: float):
         bulk_density_per_nm3=b.density_per_nm3,
         eos="reference",
     )
-    model = PoreModel(
-        probe=probe,
-        solid=default_solid(),
-        geometry=SLIT,
-        cutoff_nm=default_cutoff_nm(probe),
-        box_nm=3.41,
-        width_nm=1.0215,
-    )
+    model = slit_pore(probe, width_nm=1.0215, box_nm=3.41)
     return model, state, eos
 
 

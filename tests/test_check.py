@@ -27,12 +27,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from set_kernels import synthetic_kernel
 
 from gcmc.cli import app as cli
 from gcmc.errors import InputError
 from gcmc.kernel import flags as fl
-from gcmc.kernel import forms as F
-from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.data import KernelData
 from gcmc.kernel.reader import Kernel, open_kernel
 from gcmc.kernel.writer import write_kernel
 from gcmc.physics.units import BOLTZMANN_J_PER_K, MMOL_PER_CM3_PER_NM3, NM3_PER_M3
@@ -84,102 +84,24 @@ def make_kernel(
     name="synthetic-test",
     probe="testgas",
 ) -> KernelData:
-    """A KernelData with the exact isotherms of ``params(w)`` as its fits and noisy points."""
+    """A KernelData with the exact isotherms of ``params(w)`` as its fits and noisy points
+    (built by tests/set_kernels.py, at this module's T and SIGMA_SS)."""
     widths_w = np.asarray(widths_w, float)
-    p = np.asarray(pressures, float)
-    nw, n_p = widths_w.size, p.size
     rng = np.random.default_rng(seed)
-    pts = {f: np.full((1, nw, n_p), np.nan) for f in POINT_FIELDS}
-    fits, henry = [], np.zeros((1, nw))
-    acc = np.ones((1, nw), bool)
-    dense_p = np.geomspace(p[0] / 100, p[-1], 40)
-    dense = np.zeros((1, nw, dense_p.size))
-    for j, w in enumerate(widths_w):
-        if j in inaccessible:
-            acc[0, j] = False
-            pts["density_per_nm3"][0, j] = 0.0
-            pts["density_per_nm3_stderr"][0, j] = 0.0
-            fits.append(
-                FitRecord(
-                    "zero",
-                    np.zeros(0),
-                    np.zeros((0, 0)),
-                    0.0,
-                    n_p,
-                    0.0,
-                    1.0,
-                    0.0,
-                    np.zeros(n_p),
-                    True,
-                )
-            )
-            continue
-        par = params(w)
-        exact = F.evaluate_fit(form, par, p)
-        err = rel_err * exact
-        obs = exact + (err * rng.standard_normal(n_p) if noise else 0.0)
-        pts["density_per_nm3"][0, j] = obs
-        pts["density_per_nm3_stderr"][0, j] = err
-        r = (obs - exact) / err
-        dof = n_p - par.size
-        fits.append(
-            FitRecord(
-                form,
-                par,
-                np.zeros((par.size, par.size)),
-                float(r @ r),
-                dof,
-                float(r @ r) / dof,
-                0.5,
-                0.0,
-                r,
-                True,
-            )
-        )
-        henry[0, j] = F.FORMS[form].henry_constant(par)
-        dense[0, j] = F.evaluate_fit(form, par, dense_p)
-    pts["converged"] = np.ones((1, nw, n_p), bool)
-    pts["excess_density_per_nm3"][0] = pts["density_per_nm3"][0] - BETA * p
-    return KernelData(
-        name=name,
-        version=1,
-        probe={"name": probe, "epsilon_k": 150.0, "sigma_nm": 0.37},
-        solid={
-            "name": "graphite",
-            "density_nm3": 114.0,
-            "interlayer_nm": 0.335,
-            "epsilon_k": 28.0,
-            "sigma_nm": SIGMA_SS,
-            "epsilon_sf_scale": 1.0,
-        },
-        cutoff_nm=1.2,
-        box_nm=3.0,
-        tail_correction="none",
-        eos="ideal",
-        eos_parameters={},
-        width_convention="internal: w = H - sigma_ss",
-        pore_volume_convention="A * w (w = H - sigma_ss)",
-        sampler="synthetic",
-        temperatures_K=np.array([T]),
-        widths_H_nm=widths_w + SIGMA_SS,
-        widths_w_nm=widths_w,
-        pressures_Pa=p[None, :].copy(),
-        relative_pressures=np.full((1, n_p), np.nan),
-        saturation_pressures_Pa=np.array([np.nan]),
-        fugacities_Pa=p[None, :].copy(),
-        bulk_density_per_nm3=BETA * p[None, :],
-        points={"adsorption": pts},
-        flags={"adsorption": np.full((1, nw, n_p), "", dtype="<U64")},
-        henry_per_nm3_per_pa=henry,
-        accessible=acc,
-        fits=[fits],
-        above_range="clamp",
-        dense_pressures_Pa=dense_p[None, :],
-        dense_density_per_nm3=dense,
-        config_text="# synthetic test kernel (invented)",
-        provenance={"synthetic": True},
-        task_seeds=np.zeros((1, nw, 3), np.uint64),
-        task_seconds=np.zeros((1, nw)),
+    return synthetic_kernel(
+        widths_w,
+        pressures,
+        params,
+        form,
+        [j in inaccessible for j in range(widths_w.size)],
+        rel_err,
+        rng if noise else None,
+        40,
+        name,
+        probe,
+        "# synthetic test kernel (invented)",
+        temperature=T,
+        solid_sigma=SIGMA_SS,
     )
 
 

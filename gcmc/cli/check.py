@@ -8,10 +8,15 @@ import argparse
 import json
 import math
 import sys
-from pathlib import Path
 from typing import Any
 
-from gcmc.cli.common import DeprecatedAlias, HelpFormatter, read_number_file
+from gcmc.cli.common import (
+    DeprecatedAlias,
+    HelpFormatter,
+    check_report_folder,
+    emit_check_report,
+    read_number_file,
+)
 from gcmc.errors import InputError
 
 CHECK_HELP = """Check a kernel before it is used to invert isotherms. Per temperature and pore
@@ -243,8 +248,7 @@ def run_check(args: argparse.Namespace) -> int:
     pressures = experiment_pressures(args)
     if pressures is None and target is not None and target.pressures_Pa is not None:
         pressures = target.pressures_array()
-    if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
-        raise InputError(f"--report {args.report}: exists and is not a folder")
+    check_report_folder(args.report)
     temps = None if args.temperature is None else (float(args.temperature),)
     if temps is not None:
         kernel.temperature_index(temps[0])  # InputError naming the kernel's temperatures
@@ -268,17 +272,8 @@ def run_check(args: argparse.Namespace) -> int:
         from gcmc.quality.report import write_report
 
         written = write_report(report, kernel, args.report)
-    if args.json:
-        out = report.to_dict()
-        if written:
-            out["report_files"] = [str(p) for p in written]
-        json.dump(out, sys.stdout, indent=1)
-        sys.stdout.write("\n")
-    else:
-        print(format_table(report))
-        if written:
-            print(f"report: {len(written)} file(s) in {args.report}")
-    return report.exit_code
+    table = None if args.json else format_table(report)
+    return emit_check_report(report, table, written, args.report)
 
 
 def stored_target(kernel):  # noqa: ANN001, ANN201 - a gcmc.reader.Kernel

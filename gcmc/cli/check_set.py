@@ -21,6 +21,7 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
+from gcmc.cli.common import check_report_folder, emit_check_report
 from gcmc.errors import InputError
 
 TABLE_KEYS = (
@@ -247,8 +248,7 @@ def run_check_set(args: argparse.Namespace) -> int:
         else:
             print(format_plan(result))
         return 0
-    if args.report is not None and Path(args.report).exists() and not Path(args.report).is_dir():
-        raise InputError(f"--report {args.report}: exists and is not a folder")
+    check_report_folder(args.report)
     settings = SetSettings(
         target_rel_stderr=args.target_rel_stderr,
         chi2_threshold=args.chi2_threshold,
@@ -265,14 +265,5 @@ def run_check_set(args: argparse.Namespace) -> int:
         from gcmc.quality.joint_report import write_set_report
 
         written = write_set_report(report, args.report)
-    if args.json:
-        out = report.to_dict()
-        if written:
-            out["report_files"] = [str(p) for p in written]
-        json.dump(out, sys.stdout, indent=1)
-        sys.stdout.write("\n")
-    else:
-        print(format_set_table(report))
-        if written:
-            print(f"report: {len(written)} file(s) in {args.report}")
-    return report.exit_code
+    table = None if args.json else format_set_table(report)
+    return emit_check_report(report, table, written, args.report)

@@ -1,9 +1,10 @@
-"""Pieces shared by the sub-commands: the help formatter, deprecated option aliases and the
-reader of number files (pressures, widths)."""
+"""Pieces shared by the sub-commands: the help formatter, deprecated option aliases, the
+reader of number files (pressures, widths) and the output of a check's report."""
 
 from __future__ import annotations
 
 import argparse
+import json
 import math
 import sys
 from pathlib import Path
@@ -80,3 +81,43 @@ def read_number_file(path: str, option: str, unit: str, minimum: int = 1) -> np.
     if len(values) < minimum:
         raise InputError(f"{option} {path}: need at least {minimum}, found {len(values)}")
     return np.array(values)
+
+
+def check_report_folder(report: str | None) -> None:
+    """Refuse a ``--report`` path that exists and is not a folder (InputError naming it)."""
+    if report is not None and Path(report).exists() and not Path(report).is_dir():
+        raise InputError(f"--report {report}: exists and is not a folder")
+
+
+def emit_check_report(
+    report: Any, table: str | None, written: list[Path], report_dir: str | None
+) -> int:
+    """Print a check's report and return its exit code.
+
+    Parameters
+    ----------
+    report : CheckReport or SetReport
+        Anything with ``to_dict()`` and ``exit_code``.
+    table : str or None
+        The text table to print; None prints the report as JSON (``to_dict()``) instead.
+    written : list of Path
+        The report files written (listed in the JSON, counted after the table).
+    report_dir : str or None
+        The report folder, named after the table.
+
+    Returns
+    -------
+    int
+        ``report.exit_code``.
+    """
+    if table is None:
+        out = report.to_dict()
+        if written:
+            out["report_files"] = [str(p) for p in written]
+        json.dump(out, sys.stdout, indent=1)
+        sys.stdout.write("\n")
+    else:
+        print(table)
+        if written:
+            print(f"report: {len(written)} file(s) in {report_dir}")
+    return report.exit_code

@@ -11,7 +11,7 @@ import math
 import numpy as np
 from numba import njit
 
-from gcmc.physics.model import PoreModel, Probe
+from gcmc.physics.model import SLIT, PoreModel, Probe, default_solid
 
 #: A trial move whose Boltzmann exponent from one pair (or the wall) exceeds this is rejected
 #: without finishing the energy sum. The acceptance it discards is below exp(-OVERLAP_BETA_U
@@ -121,6 +121,33 @@ DEFAULT_CUTOFF_SIGMA = 3.0
 def default_cutoff_nm(probe: Probe) -> float:
     """The fluid-fluid cutoff radius for a probe (nm): 3 sigma."""
     return DEFAULT_CUTOFF_SIGMA * probe.sigma_nm
+
+
+def slit_pore(probe: Probe, width_nm: float, box_nm: float) -> PoreModel:
+    """A slit pore of the default solid with the probe's default cutoff.
+
+    Parameters
+    ----------
+    probe : Probe
+        The adsorbing fluid.
+    width_nm : float
+        Wall-to-wall width H (nm).
+    box_nm : float
+        The periodic edge (nm).
+
+    Returns
+    -------
+    PoreModel
+        The pore; the other fields at their defaults.
+    """
+    return PoreModel(
+        probe=probe,
+        solid=default_solid(),
+        geometry=SLIT,
+        cutoff_nm=default_cutoff_nm(probe),
+        box_nm=box_nm,
+        width_nm=width_nm,
+    )
 
 
 #: The default periodic edge is at least this many probe diameters, so that one adsorbed layer

@@ -206,21 +206,21 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
     method and a summary of the certificate.
     """
     from gcmc.physics.henry import pore_limit
-    from gcmc.pipeline.tasks import BRANCHES, finish_task, pore_model, task_seed
-    from gcmc.sampling.point import ThermoState, simulate_point
+    from gcmc.pipeline.tasks import (
+        BRANCHES,
+        finish_task,
+        point_field,
+        point_state,
+        pore_model,
+        task_seed,
+    )
+    from gcmc.sampling.point import simulate_point
 
     cfg = plan.config
     tp = plan.temperatures[task.t_index]
     model = pore_model(cfg, task.w_index, task.width_H_nm(cfg))
     k = task.point
-    state = ThermoState(
-        temperature_K=tp.temperature_K,
-        fugacity_Pa=float(tp.fugacities_Pa[k]),
-        pressure_Pa=float(tp.pressures_Pa[k]),
-        bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
-        residual_enthalpy_K=float(tp.residual_enthalpy_K[k]),
-        eos=cfg.eos,
-    )
+    state = point_state(cfg, tp, k)
     s = step(task.step)
     extra: dict = {}
     t0, c0 = time.perf_counter(), time.process_time()
@@ -258,13 +258,7 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
     seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
     arrays: dict[str, np.ndarray] = {}
     for name in POINT_FIELDS:
-        if name == "insertion_acceptance":
-            val = r.acceptance.get("insertion", np.nan)
-        elif name == "converged":
-            val = 1.0 if r.converged else 0.0
-        else:
-            val = getattr(r, name)
-        arrays[f"point/{name}"] = np.array(float(val))
+        arrays[f"point/{name}"] = np.array(float(point_field(r, name)))
     limit = pore_limit(model, tp.temperature_K)
     meta = {
         "task": task.key,

@@ -17,6 +17,7 @@ import time
 import traceback
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -26,6 +27,9 @@ from gcmc.kernel.data import POINT_FIELDS
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.pipeline import faults
 from gcmc.pipeline.config import RunConfig
+
+if TYPE_CHECKING:
+    from gcmc.sampling.point import PointResult, ThermoState
 
 BRANCHES = ("adsorption", "desorption")
 
@@ -204,6 +208,30 @@ def pore_model(cfg: RunConfig, w_index: int, width_H_nm: float | None = None) ->
     )
 
 
+def point_state(cfg: RunConfig, tp: TemperaturePlan, k: int) -> ThermoState:
+    """The bulk state of pressure point ``k`` of a temperature's plan (the config's EOS)."""
+    from gcmc.sampling.point import ThermoState
+
+    return ThermoState(
+        temperature_K=tp.temperature_K,
+        fugacity_Pa=float(tp.fugacities_Pa[k]),
+        pressure_Pa=float(tp.pressures_Pa[k]),
+        bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
+        residual_enthalpy_K=float(tp.residual_enthalpy_K[k]),
+        eos=cfg.eos,
+    )
+
+
+def point_field(r: PointResult, name: str) -> float:
+    """The value a task file stores for field ``name`` of POINT_FIELDS (the insertion
+    acceptance, NaN if none; ``converged`` as 1.0 or 0.0; else the attribute)."""
+    if name == "insertion_acceptance":
+        return r.acceptance.get("insertion", np.nan)
+    if name == "converged":
+        return 1.0 if r.converged else 0.0
+    return getattr(r, name)
+
+
 def task_path(plan: BuildPlan, task: Task) -> Path:
     """The task's result file (.npz)."""
     return plan.task_dir / f"{task.key}.npz"
@@ -220,7 +248,7 @@ def failure_path(plan: BuildPlan, task: Task) -> Path:
 def run_task(plan: BuildPlan, task: Task) -> Path:
     """Run the pressure ladder of one (temperature, width); write its file atomically."""
     from gcmc.physics.henry import pore_limit
-    from gcmc.sampling.point import ThermoState, simulate_point
+    from gcmc.sampling.point import simulate_point
 
     faults.check_task(task.key)  # the test seam (gcmc.pipeline.faults); nothing in real builds
     if task.is_rerun:
@@ -246,17 +274,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             arrays[f"{branch}/{name}"] = np.full(n_p, np.nan)
         flags[branch] = [""] * n_p
         order = range(n_p) if branch == "adsorption" else range(n_p - 1, -1, -1)
-        states = [
-            ThermoState(
-                temperature_K=tp.temperature_K,
-                fugacity_Pa=float(tp.fugacities_Pa[k]),
-                pressure_Pa=float(tp.pressures_Pa[k]),
-                bulk_density_per_nm3=float(tp.bulk_density_per_nm3[k]),
-                residual_enthalpy_K=float(tp.residual_enthalpy_K[k]),
-                eos=cfg.eos,
-            )
-            for k in range(n_p)
-        ]
+        states = [point_state(cfg, tp, k) for k in range(n_p)]
         if cfg.sampling.replica_exchange:  # configuration swaps along the ladder (sampling.ladder)
             from gcmc.sampling.ladder import simulate_ladder
 
@@ -284,13 +302,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             positions, dmax = out.positions, out.max_displacement_nm or None
             r = out.result
             for name in POINT_FIELDS:
-                if name == "insertion_acceptance":
-                    val = r.acceptance.get("insertion", np.nan)
-                elif name == "converged":
-                    val = 1.0 if r.converged else 0.0
-                else:
-                    val = getattr(r, name)
-                arrays[f"{branch}/{name}"][k] = val
+                arrays[f"{branch}/{name}"][k] = point_field(r, name)
             flags[branch][k] = "; ".join(r.flags)
     seconds = time.perf_counter() - t_start
     cpu_seconds = time.process_time() - c_start

@@ -226,6 +226,18 @@ class RoundTrip:
         return out
 
 
+#: The settings of how a check judges (not of the measurement), after ``target_rel_stderr``:
+#: shared by a set's settings and written in that order in the reports.
+JUDGING_FIELDS = (
+    "chi2_threshold",
+    "resolution_fraction",
+    "realisations",
+    "seed",
+    "pore_volume_cm3_g",
+    "inversion_method",
+)
+
+
 @dataclass
 class CheckSettings:
     """Options of :func:`run_checks` (the CLI's options, with the same defaults)."""
@@ -255,6 +267,31 @@ class CheckSettings:
             raise InputError("pore volume: must be > 0 cm3/g")
         if self.inversion_method not in METHODS:
             raise InputError(f"--inversion: must be one of {', '.join(METHODS)}")
+
+    def to_dict(self, measurement: bool = True) -> dict[str, Any]:
+        """The settings as written in a report's ``settings`` (not yet JSON-ready).
+
+        Parameters
+        ----------
+        measurement : bool
+            Include the measurement's ``noise`` and ``pressures_Pa``; False for a set's
+            report, whose members carry their own.
+
+        Returns
+        -------
+        dict
+            The settings by name; ``temperatures_K`` and ``psds`` are not written.
+        """
+        out: dict[str, Any] = {"target_rel_stderr": self.target_rel_stderr}
+        if measurement:
+            out["noise"] = {
+                "relative": self.noise.relative,
+                "absolute_mmol_cm3": self.noise.absolute_mmol_cm3,
+                "model": self.noise.describe(),
+            }
+            out["pressures_Pa"] = None if self.pressures_Pa is None else list(self.pressures_Pa)
+        out.update({name: getattr(self, name) for name in JUDGING_FIELDS})
+        return out
 
 
 @dataclass
@@ -289,8 +326,7 @@ class CheckReport:
 
     def to_dict(self) -> dict[str, Any]:
         """The report as JSON-ready dict (check.json)."""
-        s = self.settings
-        return _jsonable(
+        return jsonable(
             {
                 "kernel": {
                     "name": self.kernel_name,
@@ -298,35 +334,34 @@ class CheckReport:
                     "path": self.path,
                 },
                 "verdict": self.verdict,
-                "settings": {
-                    "target_rel_stderr": s.target_rel_stderr,
-                    "noise": {
-                        "relative": s.noise.relative,
-                        "absolute_mmol_cm3": s.noise.absolute_mmol_cm3,
-                        "model": s.noise.describe(),
-                    },
-                    "pressures_Pa": None if s.pressures_Pa is None else list(s.pressures_Pa),
-                    "chi2_threshold": s.chi2_threshold,
-                    "resolution_fraction": s.resolution_fraction,
-                    "realisations": s.realisations,
-                    "seed": s.seed,
-                    "pore_volume_cm3_g": s.pore_volume_cm3_g,
-                    "inversion_method": s.inversion_method,
-                },
+                "settings": self.settings.to_dict(),
                 "criteria": [asdict(c) for c in self.criteria],
             }
         )
 
 
-def _jsonable(x: Any) -> Any:
+def jsonable(x: Any) -> Any:
+    """Plain Python values for JSON: numpy scalars and arrays unpacked, NaN and inf -> None
+    (an unavailable number); dict keys as str.
+
+    Parameters
+    ----------
+    x : Any
+        A value, possibly nested dicts, lists and tuples.
+
+    Returns
+    -------
+    Any
+        The same structure with only JSON-ready values.
+    """
     if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
+        return {str(k): jsonable(v) for k, v in x.items()}
     if isinstance(x, list | tuple):
-        return [_jsonable(v) for v in x]
+        return [jsonable(v) for v in x]
     if isinstance(x, np.ndarray):
-        return _jsonable(x.tolist())
+        return jsonable(x.tolist())
     if isinstance(x, np.generic):
-        return _jsonable(x.item())
+        return jsonable(x.item())
     if isinstance(x, float) and not math.isfinite(x):
         return None
     return x

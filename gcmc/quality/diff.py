@@ -13,7 +13,7 @@ import numpy as np
 from gcmc.errors import InputError
 from gcmc.kernel.data import KernelData
 from gcmc.kernel.reader import Kernel
-from gcmc.quality.criteria import _branch_arrays, _jsonable, _label, _mmol, as_kernel
+from gcmc.quality.criteria import _branch_arrays, _label, _mmol, as_kernel, jsonable
 
 
 @dataclass
@@ -37,7 +37,7 @@ class DiffReport:
 
     def to_dict(self) -> dict[str, Any]:
         """The report as JSON-ready dict."""
-        return _jsonable(
+        return jsonable(
             {
                 "a": self.a,
                 "b": self.b,

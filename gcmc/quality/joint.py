@@ -50,7 +50,6 @@ selection (first the best single member, then the one that adds most to it, ...)
 from __future__ import annotations
 
 import hashlib
-import math
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -61,6 +60,7 @@ from gcmc.kernel.data import KernelData
 from gcmc.kernel.reader import Kernel
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.quality.criteria import (
+    JUDGING_FIELDS,
     MIN_MODE_STEPS,
     ROUND_TRIP_FOUND_FRACTION,
     ROUND_TRIP_MATCH_WINDOW,
@@ -71,6 +71,7 @@ from gcmc.quality.criteria import (
     Criterion,
     SyntheticPSD,
     as_kernel,
+    jsonable,
     match_modes,
     psd_peaks,
     run_checks,
@@ -1043,14 +1044,16 @@ class SetSettings:
     psds: tuple[SyntheticPSD, ...] | None = None  # None: default_set_psds()
     member_health: bool = True
 
+    def check_settings(self) -> CheckSettings:
+        """The single check's settings these share (the measurement's left at defaults)."""
+        return CheckSettings(
+            target_rel_stderr=self.target_rel_stderr,
+            **{name: getattr(self, name) for name in JUDGING_FIELDS},
+        )
+
     def validate(self) -> None:
         """Raise InputError naming the first setting out of range."""
-        CheckSettings(
-            target_rel_stderr=self.target_rel_stderr,
-            realisations=self.realisations,
-            pore_volume_cm3_g=self.pore_volume_cm3_g,
-            inversion_method=self.inversion_method,
-        ).validate()
+        self.check_settings().validate()
 
 
 def member_health(members: list[Member], settings: SetSettings) -> Criterion:
@@ -1126,7 +1129,6 @@ class SetReport:
 
     def to_dict(self) -> dict[str, Any]:
         """The report as JSON-ready dict."""
-        s = self.settings
         return jsonable(
             {
                 "members": [
@@ -1148,33 +1150,10 @@ class SetReport:
                     for m in self.members
                 ],
                 "verdict": self.verdict,
-                "settings": {
-                    "target_rel_stderr": s.target_rel_stderr,
-                    "chi2_threshold": s.chi2_threshold,
-                    "resolution_fraction": s.resolution_fraction,
-                    "realisations": s.realisations,
-                    "seed": s.seed,
-                    "pore_volume_cm3_g": s.pore_volume_cm3_g,
-                    "inversion_method": s.inversion_method,
-                },
+                "settings": self.settings.check_settings().to_dict(measurement=False),
                 "criteria": [asdict(c) for c in self.criteria],
             }
         )
-
-
-def jsonable(x: Any) -> Any:
-    """x with numpy arrays and scalars as lists and numbers, non-finite floats as None."""
-    if isinstance(x, dict):
-        return {str(k): jsonable(v) for k, v in x.items()}
-    if isinstance(x, list | tuple):
-        return [jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return jsonable(x.tolist())
-    if isinstance(x, np.generic):
-        return jsonable(x.item())
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    return x
 
 
 def run_set_checks(members: list[Member], settings: SetSettings | None = None) -> SetReport:
