@@ -225,6 +225,40 @@ def test_matrix_export_relative_pressures(tiny_kernel) -> None:  # noqa: ANN001
     )
 
 
+def test_matrix_export_of_the_heat_kernel(tiny_kernel, tmp_path: Path, capsys) -> None:  # noqa: ANN001
+    """--matrix --heat writes the reader's isosteric-heat kernel and its errors on the given
+    axes (csv: values, then errors; npz: two matrices); `gcmc show` names the heat kernel."""
+    k = open_kernel(tiny_kernel.path)
+    assert k.data.heat is not None
+    p = [2e4, 1e5, 3e5]
+    w = list(k.widths_w_nm[:2])
+    q, e = k.isosteric_heat(p, w, 298.15)
+    out = tmp_path / "q.csv"
+    base = ["export", str(tiny_kernel.path), "--matrix", "--heat", "--p-range", "2e4", "3e5"]
+    pfile = tmp_path / "p.txt"
+    pfile.write_text(" ".join(str(x) for x in p))
+    args = ["export", str(tiny_kernel.path), "--matrix", "--heat", "--pressures-Pa", str(pfile)]
+    assert main([*args, "--format", "csv", "--output", str(out)]) == 0
+    rows = list(csv.reader(io.StringIO(out.read_text())))
+    n_w = k.widths_w_nm.size
+    assert rows[0][2].startswith("isosteric_heat_kJ_per_mol at w = ")
+    assert rows[0][2 + n_w].startswith("isosteric_heat_kJ_per_mol_stderr at w = ")
+    got = np.array([[float(x) for x in r[2:]] for r in rows[1:]])
+    np.testing.assert_allclose(got[:, :2], q, rtol=5e-12)
+    np.testing.assert_allclose(got[:, n_w : n_w + 2], e, rtol=5e-12)
+    npz = tmp_path / "q.npz"
+    assert main([*base, "--format", "npz", "--output", str(npz)]) == 0
+    with np.load(npz, allow_pickle=False) as z:
+        assert z["isosteric_heat_kJ_per_mol"].shape == z["isosteric_heat_kJ_per_mol_stderr"].shape
+        assert json.loads(str(z["units_json"]))["isosteric_heat_kJ_per_mol"].startswith("kJ/mol")
+    with pytest.raises(SystemExit) as exc:  # argparse: --excess and --heat exclude each other
+        main([*base, "--excess", "--format", "npz", "--output", str(tmp_path / "x.npz")])
+    assert exc.value.code == 2 and not (tmp_path / "x.npz").exists()
+    capsys.readouterr()
+    assert main(["show", str(tiny_kernel.path)]) == 0
+    assert "isosteric-heat kernel at" in capsys.readouterr().out
+
+
 def test_matrix_options_need_matrix(tiny_kernel, tmp_path: Path, capsys) -> None:  # noqa: ANN001
     out = tmp_path / "x.csv"
     code = main(

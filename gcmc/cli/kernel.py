@@ -34,6 +34,8 @@ EXPORT_HELP = """Verify a kernel file and export it.
        evaluates it, on your pressures (Pa or p/p0) and widths (w or H; default: the
        kernel's own): csv, a wide table with one row per pressure and one column per width,
        units in the header; npz, the axes and the (pressures x widths) matrix.
+       --heat: the isosteric-heat kernel (kJ/mol) on the same axes instead, with its
+       standard errors (csv: a second block of columns; npz: a second matrix).
 Numbers in CSV have 12 significant digits. The output file is written atomically."""
 
 #: CSV columns, in order (units in the names)
@@ -112,8 +114,14 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="internal widths w = H - sigma_ss in nm, a text file (default: the kernel's)",
     )
     wsrc.add_argument("--widths-H", metavar="FILE", help="widths H in nm, a text file")
-    m.add_argument(
+    q = m.add_mutually_exclusive_group()
+    q.add_argument(
         "--excess", action="store_true", help="excess density instead of absolute density"
+    )
+    q.add_argument(
+        "--heat",
+        action="store_true",
+        help="the isosteric-heat kernel q_st (kJ/mol) and its standard errors instead",
     )
     e.set_defaults(func=run_export)
 
@@ -227,6 +235,20 @@ def summary(kernel: Kernel) -> str:
             f"worst reduced chi2 {chi:.3g} ({name}) at T = {d.temperatures_K[t]:g} K, "
             f"H = {d.widths_H_nm[w]:g} nm",
         )
+    if d.heat is not None:
+        deg = np.asarray(d.heat.degree)
+        a0 = [d.heat.zero_loading(t)[0] for t in range(deg.shape[0])]
+        a0 = np.concatenate(a0) if a0 else np.array([])
+        a0 = a0[np.isfinite(a0)]
+        add(
+            "heat",
+            f"isosteric-heat kernel at {int(np.count_nonzero(deg >= 0))}/{deg.size} "
+            "(T, width) pairs"
+            + (f"; zero-loading q_st {_range(a0, 'kJ/mol')}" if a0.size else "")
+            + " (gcmc export --matrix --heat; Kernel.isosteric_heat)",
+        )
+    else:
+        add("heat", "no isosteric-heat kernel in this file")
     dp = np.asarray(d.dense_pressures_Pa)
     add("dense", f"{dp.shape[1]} pressures per T ({_range(dp, 'Pa')})")
     prov = d.provenance
@@ -455,9 +477,12 @@ class MatrixTable:
     width_H_nm, width_w_nm : ndarray, shape (W,)
         Widths (columns) on both axes.
     quantity : str
-        "density_per_nm3" (absolute) or "excess_density_per_nm3".
+        "density_per_nm3" (absolute), "excess_density_per_nm3" or
+        "isosteric_heat_kJ_per_mol".
     matrix : ndarray, shape (P, W)
-        The kernel matrix, molecules per nm^3 of pore volume.
+        The kernel matrix: molecules per nm^3 of pore volume, or kJ/mol for the heat.
+    stderr : ndarray, shape (P, W), or None
+        Standard errors of the matrix (the heat kernel's; None for densities).
     """
 
     temperature_K: float
@@ -468,6 +493,7 @@ class MatrixTable:
     width_w_nm: np.ndarray
     quantity: str
     matrix: np.ndarray
+    stderr: np.ndarray | None = None
 
 
 def matrix_table(
@@ -478,6 +504,7 @@ def matrix_table(
     widths_nm: np.ndarray | None = None,
     width_axis: str = "w",
     excess: bool = False,
+    heat: bool = False,
 ) -> MatrixTable:
     """Evaluate the kernel matrix (:meth:`gcmc.reader.Kernel.evaluate`) on the given pressures
     (Pa, or p/p0 through the kernel's saturation pressure; default: the kernel's own) and
@@ -508,9 +535,19 @@ def matrix_table(
         x = np.asarray(d.widths_w_nm if width_axis == "w" else d.widths_H_nm, dtype=float)
     else:
         x = np.asarray(widths_nm, dtype=float)
-    m = kernel.evaluate(
-        p, x, float(temps[t]), width_axis=width_axis, quantity="excess" if excess else "absolute"
-    )
+    err = None
+    if heat:
+        m, err = kernel.isosteric_heat(p, x, float(temps[t]), width_axis=width_axis)
+        quantity = "isosteric_heat_kJ_per_mol"
+    else:
+        m = kernel.evaluate(
+            p,
+            x,
+            float(temps[t]),
+            width_axis=width_axis,
+            quantity="excess" if excess else "absolute",
+        )
+        quantity = "excess_density_per_nm3" if excess else "density_per_nm3"
     with np.errstate(invalid="ignore"):
         rel = p / psat if np.isfinite(psat) else np.full(p.shape, np.nan)
     h = x if width_axis == "H" else x + offset
@@ -522,8 +559,9 @@ def matrix_table(
         width_axis=width_axis,
         width_H_nm=h,
         width_w_nm=w,
-        quantity="excess_density_per_nm3" if excess else "density_per_nm3",
+        quantity=quantity,
         matrix=m,
+        stderr=err,
     )
 
 
@@ -534,14 +572,15 @@ def matrix_csv_text(table: MatrixTable) -> str:
     writer = csv.writer(buf, lineterminator="\n")
     axis = table.width_axis
     widths = table.width_w_nm if axis == "w" else table.width_H_nm
-    writer.writerow(
-        ["pressure_Pa", "relative_pressure"]
-        + [f"{table.quantity} at {axis} = {_num(x)} nm" for x in widths]
-    )
+    header = [f"{table.quantity} at {axis} = {_num(x)} nm" for x in widths]
+    if table.stderr is not None:
+        header += [f"{table.quantity}_stderr at {axis} = {_num(x)} nm" for x in widths]
+    writer.writerow(["pressure_Pa", "relative_pressure", *header])
     for i, p in enumerate(table.pressure_Pa):
-        writer.writerow(
-            [_num(p), _num(table.relative_pressure[i])] + [_num(v) for v in table.matrix[i]]
-        )
+        row = [_num(v) for v in table.matrix[i]]
+        if table.stderr is not None:
+            row += [_num(v) for v in table.stderr[i]]
+        writer.writerow([_num(p), _num(table.relative_pressure[i]), *row])
     return buf.getvalue()
 
 
@@ -554,10 +593,17 @@ def matrix_arrays(table: MatrixTable) -> dict[str, np.ndarray]:
         "relative_pressure": "1",
         "width_H_nm": "nm",
         "width_w_nm": "nm",
-        table.quantity: "nm^-3 (molecules per nm^3 of pore volume), rows: pressures, "
-        "columns: widths",
+        table.quantity: (
+            "kJ/mol" if table.stderr is not None else "nm^-3 (molecules per nm^3 of pore volume)"
+        )
+        + ", rows: pressures, columns: widths",
     }
+    extra = {}
+    if table.stderr is not None:
+        units[f"{table.quantity}_stderr"] = units[table.quantity]
+        extra[f"{table.quantity}_stderr"] = table.stderr
     return {
+        **extra,
         "temperature_K": np.array(table.temperature_K),
         "pressure_Pa": table.pressure_Pa,
         "relative_pressure": table.relative_pressure,
@@ -593,6 +639,7 @@ _MATRIX_OPTIONS = (
     ("widths_w", "--widths-w"),
     ("widths_H", "--widths-H"),
     ("excess", "--excess"),
+    ("heat", "--heat"),
 )
 
 
@@ -632,6 +679,7 @@ def _matrix_from_args(kernel: Kernel, args: argparse.Namespace) -> MatrixTable:
         widths_nm=widths,
         width_axis=axis,
         excess=args.excess,
+        heat=args.heat,
     )
 
 
@@ -654,7 +702,9 @@ def run_export(args: argparse.Namespace) -> int:
             arrays = matrix_arrays(table)
             _write_atomic(out, lambda fh: np.savez(fh, **arrays), args.force)
         print(
-            f"wrote {out} ({args.format}: kernel matrix, {table.matrix.shape[0]} pressures x "
+            f"wrote {out} ({args.format}: "
+            f"{'isosteric-heat kernel' if args.heat else 'kernel matrix'}, "
+            f"{table.matrix.shape[0]} pressures x "
             f"{table.matrix.shape[1]} widths at {table.temperature_K:g} K)"
         )
         return 0
