@@ -211,28 +211,15 @@ def test_mpi_refined_build_gives_the_pool_kernel(tmp_path: Path, reference: Any)
     same_refined_kernel(reference[0], read_kernel(cfg, NAME))
 
 
-DENSE = """
-seed = 5
-[kernel]
-name = "dense-argon"
-output = "out"
-[probe]
-library_name = "argon"
-[widths]
-H_nm = [1.0215]
-[temperatures]
-K = [87.3]
-[pressures]
-p_p0 = [0.05, 0.1]
-[sampling]
-equilibration_moves = 2000
-production_moves = 4000
-sample_every = 100
+DENSE = (
+    (Path(__file__).parent / "configs" / "dense_argon.toml").read_text()
+    + """
 [target]
 cpu_hours = 0.05
 cpu_hours_per_point = 0.01
 max_rounds = 6
 """
+)
 
 
 @pytest.mark.slow

@@ -8,6 +8,7 @@ import io
 import json
 import math
 from dataclasses import replace
+from pathlib import Path
 
 import pytest
 
@@ -204,27 +205,16 @@ def test_certified_path_bad_input(extra, field, capsys):
 
 # --- the certified step of a quality-target build (gcmc.pipeline.escalation) ----------------
 
-DENSE_BUILD = """
-seed = 3
-[kernel]
-name = "dense-argon"
-output = "out"
-[probe]
-library_name = "argon"
-[widths]
-H_nm = [1.0215]
-[temperatures]
-K = [87.3]
-[pressures]
-p_p0 = [0.05, 0.1]
-[sampling]
-equilibration_moves = 2000
-production_moves = 4000
-sample_every = 100
+DENSE_BUILD = (
+    (Path(__file__).parent / "configs" / "dense_argon.toml")
+    .read_text()
+    .replace("seed = 5", "seed = 3", 1)
+    + """
 [target]
 cpu_hours = 0.01
 cpu_hours_per_point = 0.0005
 """
+)
 
 
 def test_certified_step_writes_a_task_file_that_assembles(tmp_path, engine):
