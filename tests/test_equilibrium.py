@@ -22,6 +22,7 @@ import numpy as np
 import pytest
 from set_kernels import small
 
+from gcmc.cli.kernel import equilibrium_line
 from gcmc.errors import InputError
 from gcmc.kernel import equilibrium as eq
 from gcmc.kernel.reader import open_kernel
@@ -272,6 +273,18 @@ def test_round_trip_through_the_kernel_file(tmp_path):
     direct = eq.equilibrium_transition(p, p, na, err, nd, err, N_M * B, anchor)
     assert direct.pressure_Pa == mem.pressure_Pa
     assert abs(np.log(mem.fugacity_Pa / F_EQ)) <= mem.ln_f_integration_error + 4 * mem.ln_f_stderr
+    # without an anchor: no transition, but the loop's bracket holds the exact one
+    bare = eq.pore_transition(back, 0, j)
+    assert bare.reason == eq.NO_ANCHOR
+    lo, hi = bare.loop_pressure_range_Pa
+    assert lo < F_EQ < hi and (lo, hi) == mem.loop_pressure_range_Pa
+    # gcmc show names the loop and why there is no transition
+    line = equilibrium_line(back)
+    n_acc = int(np.count_nonzero(back.accessible))
+    assert line.startswith(f"hysteresis loop in 1/{n_acc} accessible pores")
+    assert f"bracketed by p {lo:.3g}-{hi:.3g} Pa" in line
+    assert f"1 {eq.NO_ANCHOR}" in line
+    assert equilibrium_line(small()) == ""  # no desorption branch: no line
     # a pore without a loop in the same file: the adsorption branch, with its reason
     other = eq.pore_transition(back, 0, 5)
     assert other.reason == eq.NO_LOOP

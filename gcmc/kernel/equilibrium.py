@@ -59,10 +59,7 @@ NO_LOOP = "no hysteresis loop: the branches agree within errors"
 NO_DESORPTION = "no desorption branch"
 TOP_DISAGREE = "the branches differ at the top pressure: the loop extends beyond the grid"
 LOW_DISAGREE = "the branches differ at the lowest pressure: the loop extends below the grid"
-NO_ANCHOR = (
-    "hysteresis loop but no reversible-path anchor for the liquid branch's grand potential "
-    "(integrating the adsorption branch through its jump is not reversible)"
-)
+NO_ANCHOR = "loop without a reversible-path anchor for the liquid branch's grand potential"
 UNRESOLVED = "the transition lies beyond one grid interval outside the sampled loop"
 
 
@@ -89,6 +86,11 @@ class EquilibriumResult:
         in which case the equilibrium branch is the adsorption branch).
     extrapolated : bool
         f_eq lies within one grid interval beyond the last point where both branches exist.
+    loop_pressure_range_Pa : tuple[float, float]
+        Where a loop was found inside the grid: the grid pressures just below and just above
+        it (the last point where the branches agree below the loop, the first above). The
+        transition lies between the desorption drop and the adsorption jump, so within this
+        bracket, with or without an anchor. (NaN, NaN) without a loop inside the grid.
     """
 
     fugacity_Pa: float
@@ -102,6 +104,7 @@ class EquilibriumResult:
     beta_omega_liquid_per_nm3: np.ndarray
     reason: str
     extrapolated: bool = False
+    loop_pressure_range_Pa: tuple[float, float] = (float("nan"), float("nan"))
 
     @property
     def has_transition(self) -> bool:
@@ -257,9 +260,11 @@ def equilibrium_transition(
         raise InputError("henry_per_nm3_per_pa: must be finite and >= 0")
     nan = np.full(P, np.nan)
 
-    def result(reason: str, dens: np.ndarray, err: np.ndarray, og=nan, ol=nan) -> EquilibriumResult:
+    bracket = (float("nan"), float("nan"))
+
+    def result(reason: str, dens: np.ndarray, err: np.ndarray) -> EquilibriumResult:
         return EquilibriumResult(
-            np.nan, np.nan, np.nan, np.nan, np.nan, dens, err, og, ol, reason, False
+            np.nan, np.nan, np.nan, np.nan, np.nan, dens, err, nan, nan, reason, False, bracket
         )
 
     if n_des is None or s_des is None or not np.any(np.isfinite(n_des)):
@@ -284,6 +289,7 @@ def equilibrium_transition(
         return result(TOP_DISAGREE, nan.copy(), nan.copy())
     if loop[0] == 0:
         return result(LOW_DISAGREE, nan.copy(), nan.copy())
+    bracket = (float(p[idx[loop[0] - 1]]), float(p[idx[loop[-1] + 1]]))
     if liquid_anchor is None:
         return result(NO_ANCHOR, nan.copy(), nan.copy())
     anchor, anchor_err = (float(v) for v in liquid_anchor)
@@ -385,7 +391,7 @@ def equilibrium_transition(
         if j >= k_lo:
             ol[i] = anchor + ig_top - _hermite_cumulative(xl, yl, dl, x[j])
     return EquilibriumResult(
-        f_eq, p_eq, ln_f_stderr, ln_f_integ, unc, dens, err, og, ol, "", extrapolated
+        f_eq, p_eq, ln_f_stderr, ln_f_integ, unc, dens, err, og, ol, "", extrapolated, bracket
     )
 
 
@@ -456,3 +462,13 @@ def pore_transition(
         liquid_anchor,
         loop_z,
     )
+
+
+def kernel_transitions(data: KernelData) -> list[tuple[int, int, EquilibriumResult]]:
+    """:func:`pore_transition` without an anchor for every accessible pore of a kernel with a
+    desorption branch: (t, j, result); [] without one. Tells where the branches part (the
+    loop's bracket) and why no transition is given."""
+    if "desorption" not in data.points:
+        return []
+    acc = np.asarray(data.accessible, bool)
+    return [(t, j, pore_transition(data, t, j)) for t, j in zip(*np.nonzero(acc), strict=True)]
