@@ -168,8 +168,9 @@ def equilibrium_line(d: KernelData) -> str:
         lo = [r.loop_pressure_range_Pa[0] / (p0[t] if rel else 1.0) for t, _, r in loops]
         hi = [r.loop_pressure_range_Pa[1] / (p0[t] if rel else 1.0) for t, _, r in loops]
         h = sorted({float(d.widths_H_nm[j]) for _, j, _ in loops})
+        h_text = f"{h[0]:g}" + (f"-{h[-1]:g}" if len(h) > 1 else "")
         text += (
-            f" (H {h[0]:g}{f'-{h[-1]:g}' if len(h) > 1 else ''} nm; bracketed by {'p/p0' if rel else 'p'} "
+            f" (H {h_text} nm; bracketed by {'p/p0' if rel else 'p'} "
             f"{min(lo):.3g}-{max(hi):.3g}{'' if rel else ' Pa'})"
         )
     text += f"; equilibrium transition in {len(with_eq)}"
