@@ -290,3 +290,50 @@ def test_round_trip_through_the_kernel_file(tmp_path):
     assert other.reason == eq.NO_LOOP
     with pytest.raises(InputError, match="pore index"):
         eq.pore_transition(back, 0, 999)
+
+
+# the same lattice gas at other temperatures: c = eps/T, u = <U>/V = -(eps/2) n_m theta^2
+T_K = 100.0
+EPS_K = C * T_K
+
+
+def _theta_at(beta, ln_lam):
+    """theta of the mean-field lattice gas at (beta, ln lambda) on a path without a loop."""
+    lo, hi = np.full_like(ln_lam, 1e-14), np.full_like(ln_lam, 1 - 1e-14)
+    for _ in range(200):
+        m = (lo + hi) / 2
+        up = np.log(m / (1 - m)) - beta * EPS_K * m < ln_lam
+        lo, hi = np.where(up, m, lo), np.where(up, hi, m)
+    return (lo + hi) / 2
+
+
+def test_a_reversible_path_gives_the_anchor_and_the_transition():
+    # exact limit: a path from the dilute gas up a supercritical isotherm (c = 3 < 4), then at
+    # ln lambda = 0 (above the loop at every temperature) down to T, then down the liquid
+    # branch to the kernel's top point; d(beta omega) = u d beta - n d ln lambda; the anchor
+    # must equal the exact beta omega there, and the transition from it the exact f_eq
+    p, f, na, nd = grid(15)
+    ln_top = float(np.log(B * f[-1]))  # ln lambda = ln(b f) at the kernel's temperature
+    b_hi, b_lo = 1 / (2 * T_K), 1 / T_K
+    leg1 = np.linspace(np.log(1e-3), 0.0, 24)
+    leg2 = np.linspace(b_hi, b_lo, 8)[1:]
+    leg3 = np.linspace(0.0, ln_top, 5)[1:]
+    beta = np.concatenate([np.full(leg1.size, b_hi), leg2, np.full(leg3.size, b_lo)])
+    ln_lam = np.concatenate([leg1, np.zeros(leg2.size), leg3])
+    theta = _theta_at(beta, ln_lam)
+    n = N_M * theta
+    u = -(EPS_K / 2) * N_M * theta**2
+    s = np.full(beta.size, S)
+    path = eq.path_grand_potential(beta, ln_lam, n, u, N_M * np.exp(ln_lam[0]), s, 0 * s)
+    exact = float(beta_omega(nd[-1] / N_M))
+    assert abs(path.beta_omega_per_nm3 - exact) <= path.integration_error + 4 * path.stderr
+    assert path.integration_error < 0.1  # the anchor is usable at this sampling
+    r = solve(p, f, na, nd, anchor=path.anchor)
+    assert r.has_transition
+    assert abs(np.log(r.fugacity_Pa / F_EQ)) <= r.ln_f_integration_error + 4 * r.ln_f_stderr
+    assert F_DN < r.fugacity_Pa < F_UP
+    # a path that ignores the energy term (integrating -n d ln z only) is wrong
+    wrong = eq.path_grand_potential(beta, ln_lam, n, 0 * u, N_M * np.exp(ln_lam[0]))
+    assert abs(wrong.beta_omega_per_nm3 - exact) > 20 * path.anchor[1]
+    with pytest.raises(InputError, match="path"):
+        eq.path_grand_potential(beta[:2], ln_lam[:2], n[:2], u[:2], 0.0)

@@ -30,11 +30,11 @@ passes it (``liquid_anchor``). Without one, a pore with a loop gets no transitio
 Integration: on a monotone piecewise-cubic Hermite interpolant (Fritsch & Carlson, SIAM J.
 Numer. Anal. 17 (1980) 238) of n in ln f through the points, integrated exactly per interval;
 monotone because the branches are steep next to the loop and a free spline overshoots there.
-The integration error is estimated as |PCHIP - trapezoid| of D at f_eq (the trapezoid rule is
-the piecewise-linear interpolant; the difference bounds the interpolation error where the
-curvature does not change sign within an interval) plus the tail term above, turned into ln f
-by the slope n_l - n_g. The points' standard errors enter D through the trapezoid weights and
-the tail, and give sigma(ln f_eq) = sigma(D)/(n_l - n_g).
+The integration error is estimated as the larger of |PCHIP - trapezoid| of D at f_eq (the
+trapezoid rule is the piecewise-linear interpolant) and |PCHIP - PCHIP on every other point|
+(which sees a steep rise between two points that both interpolants miss alike), plus the tail
+term above, turned into ln f by the slope n_l - n_g. The points' standard errors enter D
+through the trapezoid weights and the tail, and give sigma(ln f_eq) = sigma(D)/(n_l - n_g).
 """
 
 from __future__ import annotations
@@ -306,9 +306,22 @@ def equilibrium_transition(
     tail_err = abs(n0 - kh * f0) / 4
     ig_top, il_top = _hermite_cumulative(xl, yl, dl, xl[-1]), xl[-1]
 
-    def d_of(xq: float, cubic: bool = True) -> float:
-        """D = beta(omega_g - omega_l) at ln f = xq (within both ranges)."""
-        if cubic:
+    def every_other(xs: np.ndarray, ys: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        keep = np.unique(np.r_[np.arange(0, xs.size, 2), xs.size - 1])
+        return xs[keep], ys[keep], pchip_slopes(xs[keep], ys[keep])
+
+    xg2, yg2, dg2 = every_other(xg, yg)
+    xl2, yl2, dl2 = every_other(xl, yl)
+
+    def d_of(xq: float, cubic: bool = True, coarse: bool = False) -> float:
+        """D = beta(omega_g - omega_l) at ln f = xq (within both ranges); ``coarse``: the
+        cubic on every other node of each branch."""
+        if coarse:
+            ig = _hermite_cumulative(xg2, yg2, dg2, xq)
+            il = _hermite_cumulative(xl2, yl2, dl2, xl2[-1]) - _hermite_cumulative(
+                xl2, yl2, dl2, xq
+            )
+        elif cubic:
             ig = _hermite_cumulative(xg, yg, dg, xq)
             il = ig_top - _hermite_cumulative(xl, yl, dl, xq)
         else:
@@ -367,7 +380,8 @@ def equilibrium_transition(
     wl = _trap_weights(xl, xl[-1]) - _trap_weights(xl, xc)
     wg[0] += 0.5  # the tail's n_0
     var_d = float(np.sum((wg * eg) ** 2) + np.sum((wl * el) ** 2) + anchor_err**2)
-    integ = abs(d_of(xc, True) - d_of(xc, False)) + tail_err
+    d_c = d_of(xc)
+    integ = max(abs(d_c - d_of(xc, cubic=False)), abs(d_c - d_of(xc, coarse=True))) + tail_err
     ln_f_stderr = float(np.sqrt(var_d) / dn)
     ln_f_integ = float(integ / dn + extrap_err)
     f_eq = float(np.exp(xe))
@@ -472,3 +486,120 @@ def kernel_transitions(data: KernelData) -> list[tuple[int, int, EquilibriumResu
         return []
     acc = np.asarray(data.accessible, bool)
     return [(t, j, pore_transition(data, t, j)) for t, j in zip(*np.nonzero(acc), strict=True)]
+
+
+# --------------------------------------------------------------------------------------------
+# the liquid-branch anchor along a reversible path in (beta, ln z)
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class PathIntegral:
+    """beta Omega / V (nm^-3) at the end of a reversible path, with its statistical standard
+    error and an estimate of the integration error (summed over the legs)."""
+
+    beta_omega_per_nm3: float
+    stderr: float
+    integration_error: float
+
+    @property
+    def anchor(self) -> tuple[float, float]:
+        """``liquid_anchor`` for :func:`equilibrium_transition`: the value and the combined
+        uncertainty (statistical and integration, in quadrature)."""
+        return self.beta_omega_per_nm3, float(np.hypot(self.stderr, self.integration_error))
+
+
+def _legs(beta: np.ndarray, ln_z: np.ndarray) -> list[tuple[int, int, str]]:
+    """Split a path into maximal legs along one variable: (first, last, "z" | "beta" | "both")
+    with ln z changing at fixed beta, beta at fixed ln z, or both (a diagonal segment)."""
+    kinds = np.where(np.diff(beta) == 0, "z", np.where(np.diff(ln_z) == 0, "beta", "both"))
+    legs, start = [], 0
+    for i in range(1, kinds.size + 1):
+        if i == kinds.size or kinds[i] != kinds[start] or kinds[i] == "both":
+            legs.append((start, i, str(kinds[start])))
+            start = i
+    return legs
+
+
+def _leg_integral(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """int y dx along a leg (x monotone): the monotone cubic's integral and its error estimate,
+    the larger of |cubic - trapezoid| and |cubic - cubic on every other node| (the second sees
+    a step between two nodes that both interpolants miss alike; for two points: the
+    trapezoid, and half the difference of its end rectangles)."""
+    if x[-1] < x[0]:
+        v, e = _leg_integral(x[::-1], y[::-1])
+        return -v, e
+    trap = _trap(x, y, float(x[-1]))
+    if x.size < 3:
+        return trap, abs((y[-1] - y[0]) * (x[-1] - x[0])) / 4
+    cubic = _hermite_cumulative(x, y, pchip_slopes(x, y), float(x[-1]))
+    # on every other node (and the last): a feature between two nodes shows up here
+    half = np.unique(np.r_[np.arange(0, x.size, 2), x.size - 1])
+    xh, yh = x[half], y[half]
+    if xh.size >= 3:
+        coarse = _hermite_cumulative(xh, yh, pchip_slopes(xh, yh), float(x[-1]))
+    else:
+        coarse = _trap(xh, yh, float(x[-1]))
+    return cubic, max(abs(cubic - trap), abs(cubic - coarse))
+
+
+def path_grand_potential(
+    beta_per_K: np.ndarray,
+    ln_z: np.ndarray,
+    density_per_nm3: np.ndarray,
+    energy_K_per_nm3: np.ndarray,
+    henry_density0_per_nm3: float,
+    density_stderr: np.ndarray | None = None,
+    energy_stderr: np.ndarray | None = None,
+) -> PathIntegral:
+    """beta Omega / V at the last state of a path of simulated states that starts dilute and
+    changes reversibly (no loop anywhere on it), e.g. up an isotherm above the pore's
+    critical temperature, then at high activity down in temperature, then down the liquid
+    branch of the kernel's isotherm to its top point.
+
+    beta Omega = -ln Xi(beta, z) gives d(beta Omega / V) = u d beta - n d ln z, u = <U>/V the
+    configurational energy per volume in K nm^-3 (U/k) and z the activity (any fixed
+    normalisation: only differences of ln z enter; at fixed T, d ln z = d ln f). The path is
+    cut into legs along one variable (ln z at fixed beta, beta at fixed ln z), each
+    integrated on the monotone cubic in its variable (error: :func:`_leg_integral`)
+    (a diagonal segment: the trapezoid rule); the start is dilute, with
+    beta Omega/V = -(n_H + n_0)/2, n_H = K_H f_0 the Henry-law density at the first point
+    (module docstring). Standard errors propagate through the trapezoid weights.
+    """
+    b = _vec(beta_per_K, "beta_per_K")
+    z = _vec(ln_z, "ln_z")
+    n = _vec(density_per_nm3, "density_per_nm3")
+    u = _vec(energy_K_per_nm3, "energy_K_per_nm3")
+    m = b.size
+    if m < 3 or any(a.size != m for a in (z, n, u)):
+        raise InputError("path: beta, ln_z, density and energy need the same length (>= 3)")
+    if not all(np.all(np.isfinite(a)) for a in (b, z, n, u)):
+        raise InputError("path: every state needs finite beta, ln_z, density and energy")
+    sn = np.zeros(m) if density_stderr is None else _vec(density_stderr, "density_stderr")
+    su = np.zeros(m) if energy_stderr is None else _vec(energy_stderr, "energy_stderr")
+    start = -(float(henry_density0_per_nm3) + n[0]) / 2
+    if np.any((np.diff(b) == 0) & (np.diff(z) == 0)):
+        raise InputError("path: two consecutive states are the same (beta and ln_z)")
+    total, integ = 0.0, 0.0
+    for i, k, kind in _legs(b, z):
+        sl = slice(i, k + 1)
+        if kind == "z":
+            v, e = _leg_integral(z[sl], n[sl])
+            total -= v
+        elif kind == "beta":
+            v, e = _leg_integral(b[sl], u[sl])
+            total += v
+        else:
+            v = (u[i] + u[k]) / 2 * (b[k] - b[i]) - (n[i] + n[k]) / 2 * (z[k] - z[i])
+            e = (abs((u[k] - u[i]) * (b[k] - b[i])) + abs((n[k] - n[i]) * (z[k] - z[i]))) / 4
+            total += v
+        integ += e
+    db, dz = np.diff(b), np.diff(z)
+    wb = np.zeros(m)
+    wz = np.zeros(m)
+    wb[1:] += db / 2
+    wb[:-1] += db / 2
+    wz[1:] += dz / 2
+    wz[:-1] += dz / 2
+    wz[0] += 0.5  # the start's n_0
+    var = float(np.sum((wz * sn) ** 2) + np.sum((wb * su) ** 2))
+    tail_err = abs(n[0] - float(henry_density0_per_nm3)) / 4
+    return PathIntegral(start + total, float(np.sqrt(var)), integ + tail_err)
