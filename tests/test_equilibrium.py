@@ -219,6 +219,11 @@ def test_no_transition_with_a_reason():
     bot = f > 0.5 * (F_EQ + F_DN)
     r = solve(p[bot], f[bot], na[bot], nd[bot])
     assert r.reason == eq.LOW_DISAGREE
+    # a stray point far below the loop: no single loop, no transition
+    stray = nd.copy()
+    stray[2] += 10 * S
+    r = solve(p, f, na, stray)
+    assert r.reason == eq.SEPARATED and not r.has_transition
     with pytest.raises(InputError, match="n_ads"):
         eq.equilibrium_transition(f, p, na[:-1], s, nd, s, 1.0)
 

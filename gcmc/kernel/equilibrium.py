@@ -60,6 +60,9 @@ NO_DESORPTION = "no desorption branch"
 TOP_DISAGREE = "the branches differ at the top pressure: the loop extends beyond the grid"
 LOW_DISAGREE = "the branches differ at the lowest pressure: the loop extends below the grid"
 NO_ANCHOR = "loop without a reversible-path anchor for the liquid branch's grand potential"
+SEPARATED = (
+    "the branches part at separated points (two loops, or a stray point): no single transition"
+)
 UNRESOLVED = "the transition lies beyond one grid interval outside the sampled loop"
 
 
@@ -289,6 +292,8 @@ def equilibrium_transition(
         return result(TOP_DISAGREE, nan.copy(), nan.copy())
     if loop[0] == 0:
         return result(LOW_DISAGREE, nan.copy(), nan.copy())
+    if np.any(np.diff(loop) > 1):
+        return result(SEPARATED, nan.copy(), nan.copy())
     bracket = (float(p[idx[loop[0] - 1]]), float(p[idx[loop[-1] + 1]]))
     if liquid_anchor is None:
         return result(NO_ANCHOR, nan.copy(), nan.copy())
