@@ -199,6 +199,13 @@ def test_no_loop_gives_the_adsorption_branch():
     assert r.reason == eq.NO_LOOP and not r.has_transition
     np.testing.assert_array_equal(r.density_per_nm3, na)
     np.testing.assert_allclose(r.density_per_nm3, nd, atol=5 * np.sqrt(2) * 0.01)
+    # a point without an error does not make a loop
+    s_nan = s.copy()
+    s_nan[4] = np.nan
+    nd_off = nd.copy()
+    nd_off[4] += 1.0
+    assert eq.equilibrium_transition(f, p, na, s, nd_off, s_nan, N_M * B).reason == eq.NO_LOOP
+    assert eq.equilibrium_transition(f, p, na, s, nd_off, s, N_M * B).reason == eq.NO_ANCHOR
     # no desorption branch at all
     r2 = eq.equilibrium_transition(f, p, na, s, None, None, N_M * B, None)
     assert r2.reason == eq.NO_DESORPTION and np.all(np.isnan(r2.density_per_nm3))

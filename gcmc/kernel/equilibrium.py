@@ -281,11 +281,13 @@ def equilibrium_transition(
         return result(NO_LOOP, na.copy(), sa.copy())
     if np.any(np.diff(f[idx]) <= 0):
         raise InputError("fugacities_Pa: must increase along the grid")
-    comb = np.sqrt(np.nan_to_num(sa[idx]) ** 2 + np.nan_to_num(sd[idx]) ** 2)
+    # a point without a standard error (NaN) takes no part in deciding where the branches
+    # part; exact data (error 0) part wherever they differ
+    comb = np.sqrt(sa[idx] ** 2 + sd[idx] ** 2)
     with np.errstate(divide="ignore", invalid="ignore"):
         z = np.abs(nd[idx] - na[idx]) / comb
     z = np.where(comb > 0, z, np.where(nd[idx] != na[idx], np.inf, 0.0))
-    loop = np.flatnonzero(z > loop_z)
+    loop = np.flatnonzero(np.nan_to_num(z, nan=0.0) > loop_z)
     if loop.size == 0:
         return result(NO_LOOP, na.copy(), sa.copy())
     if loop[-1] == idx.size - 1:
