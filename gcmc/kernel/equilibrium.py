@@ -286,7 +286,7 @@ def equilibrium_transition(
     comb = np.sqrt(sa[idx] ** 2 + sd[idx] ** 2)
     with np.errstate(divide="ignore", invalid="ignore"):
         z = np.abs(nd[idx] - na[idx]) / comb
-    z = np.where(comb > 0, z, np.where(nd[idx] != na[idx], np.inf, 0.0))
+    z = np.where(comb == 0, np.where(nd[idx] != na[idx], np.inf, 0.0), z)
     loop = np.flatnonzero(np.nan_to_num(z, nan=0.0) > loop_z)
     if loop.size == 0:
         return result(NO_LOOP, na.copy(), sa.copy())
