@@ -21,8 +21,9 @@ below f_eq and the desorption branch above (Peterson & Gubbins, Mol. Phys. 62 (1
 The anchor is the point of the method: omega_l(f_top) cannot be taken from the adsorption
 branch integrated through its jump, although both branches coincide at f_top. The jump is
 irreversible (n changes at fixed mu); integrating n d ln f across it drops the free-energy
-difference of the two states, and gives omega_l - omega_g = int (n_ads - n_des) d ln f >= 0
-over the whole loop, i.e. a "transition" at the adsorption jump whatever the true one is. The
+difference of the two states, and gives omega_l - omega_g = int_{ln f}^{ln f_top} (n_des -
+n_ads) d ln f' >= 0 over the whole loop, i.e. a "transition" at the adsorption jump whatever
+the true one is. The
 liquid-branch anchor needs a reversible path that avoids the loop (e.g. through a temperature
 above the pore's critical point, or a flat-histogram sampler's grand potential); the caller
 passes it (``liquid_anchor``). Without one, a pore with a loop gets no transition and says so.
@@ -48,12 +49,6 @@ from gcmc.kernel.data import KernelData
 
 #: Branches are "different" (a loop point) where |n_des - n_ads| > LOOP_Z combined sigma.
 LOOP_Z = 4.0
-EQUILIBRIUM_REFERENCE = (
-    "grand potential by Gibbs-Duhem integration of both branches, d(beta Omega/V) = -n d ln f "
-    "(Peterson & Gubbins, Mol. Phys. 62 (1987) 215); monotone cubic Hermite interpolation in "
-    "ln f (Fritsch & Carlson 1980)"
-)
-
 # reasons (one line each; "" when a transition was found)
 NO_LOOP = "no hysteresis loop: the branches agree within errors"
 NO_DESORPTION = "no desorption branch"
