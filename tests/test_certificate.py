@@ -270,3 +270,42 @@ def test_certified_step_writes_a_task_file_that_assembles(tmp_path, engine):
     assert data.flags["adsorption"][0, 0, 1] == meta["flags"]
     assert pts["density_per_nm3"][0, 0, 0] == first.points["adsorption"]["density_per_nm3"][0, 0, 0]
     assert np.isfinite(data.task_seconds[0, 0])
+
+
+def test_move_budget_makes_the_certificate_independent_of_the_clock(engine, monkeypatch):
+    """With a budget in moves, the number of attempts (and so the point) does not depend on
+    process time: the same seed gives the same point whether the clock runs normally or a
+    thousand times fast (with the CPU budget alone, the fast clock stops after one attempt).
+    The build's conversion of a CPU budget to moves is a function of the config alone and
+    grows with the budget by whole doublings of production."""
+    import time as _time
+
+    from gcmc.pipeline.escalation import certificate_move_budget
+
+    model, state, eos = _argon_state(87.3, 0.1)
+    cs = C.CertifySettings(
+        equilibration_moves=2_000,
+        production_moves=4_000,
+        hot_rungs=2,
+        budget_cpu_s=1e6,
+        max_production_moves=8_000,
+    )
+    normal = C.certify_filled_point(model, state, 5, cs, eos)
+    real = _time.process_time
+    monkeypatch.setattr(C.time, "process_time", lambda: 1000.0 * real())
+    fast = C.certify_filled_point(model, state, 5, cs, eos)
+    assert fast.production_moves == normal.production_moves
+    assert fast.density_per_nm3 == normal.density_per_nm3
+    if not normal.certified:
+        assert normal.production_moves == 8_000  # both attempts ran, then the move budget
+        assert fl.has_flag(normal.flags, fl.BUDGET_SPENT)
+    clock_only = C.certify_filled_point(model, state, 5, replace(cs, max_production_moves=0), eos)
+    assert clock_only.production_moves == 4_000 or clock_only.certified
+    monkeypatch.setattr(C.time, "process_time", real)
+    base = C.CertifySettings(production_moves=100_000, hot_rungs=2)
+    budgets = [certificate_move_budget(model, state, base, b) for b in (1.0, 60.0, 600.0, 6000.0)]
+    assert budgets == [
+        certificate_move_budget(model, state, base, b) for b in (1.0, 60.0, 600.0, 6000.0)
+    ]
+    assert budgets[0] == 100_000 and budgets == sorted(budgets) and budgets[-1] > budgets[0]
+    assert all(b // 100_000 in (1, 2, 4, 8, 16, 32, 64, 128, 256) for b in budgets)

@@ -42,9 +42,10 @@ import numpy as np
 from gcmc.kernel.data import POINT_FIELDS
 
 if TYPE_CHECKING:
+    from gcmc.physics.model import PoreModel
     from gcmc.pipeline.tasks import BuildPlan, Task
     from gcmc.sampling.certificate import CertifySettings
-    from gcmc.sampling.point import SamplingSettings
+    from gcmc.sampling.point import SamplingSettings, ThermoState
 
 
 @dataclass(frozen=True)
@@ -179,14 +180,60 @@ def first_step_with_effort(current: int, effort: float) -> int:
     return len(STEPS) if current < len(STEPS) else current + 1
 
 
-def certify_settings(base: SamplingSettings, budget_cpu_s: float) -> CertifySettings:
+#: CPU microseconds per unit of gcmc.pipeline.cost's per-move estimate, for turning a
+#: certificate's CPU budget into a move budget (measured: tempering chains of argon in a filled
+#: 3 sigma pore at 87.3 K, biased insertion k = 64, about 2 us per move for an estimate of
+#: about 200 units; benchmarks/README.md, "Dense confined phases"). Only the number of the
+#: certificate's attempts depends on it, never a result for a given number of attempts.
+US_PER_COST_UNIT = 0.01
+
+
+def certificate_move_budget(
+    model: PoreModel, state: ThermoState, cs: CertifySettings, budget_cpu_s: float
+) -> int:
+    """The certificate's budget in production moves per rung: the largest production of the
+    doubling attempts (production_moves x 2^k) whose attempts together fit into
+    ``budget_cpu_s`` by the a-priori cost estimate (gcmc.pipeline.cost at the point's state,
+    the kernel rung's cost for every rung: hotter rungs hold less); at least the first
+    attempt's. A function of the config alone, so that a resumed build certifies the same."""
+    from gcmc.pipeline.cost import estimate_task_cost
+    from gcmc.sampling.certificate import attempt_moves
+
+    per_move = estimate_task_cost(
+        model,
+        state.temperature_K,
+        np.array([state.fugacity_Pa]),
+        1.0,
+        cs.insertion_trials,
+        64,
+        0.5,
+    )
+    us = max(per_move, 1.0) * US_PER_COST_UNIT
+    production, spent = cs.production_moves, 0.0
+    while True:
+        spent += attempt_moves(model, cs, production) * us * 1e-6
+        nxt = attempt_moves(model, cs, 2 * production) * us * 1e-6
+        if spent + nxt > budget_cpu_s:
+            return production
+        production *= 2
+
+
+def certify_settings(
+    base: SamplingSettings,
+    budget_cpu_s: float,
+    model: PoreModel | None = None,
+    state: ThermoState | None = None,
+) -> CertifySettings:
     """The certificate's settings at the certified step: the config's moves per rung
     (equilibration, production, sampling interval, insertion method, over-fill) times the
-    step's effort, and the CPU budget; every other field the certificate's default."""
+    step's effort, and the CPU budget; every other field the certificate's default. With the
+    point's ``model`` and ``state``, the budget is also given in moves
+    (:func:`certificate_move_budget`), which the certificate then uses instead of process
+    time: the point is the same on any machine and after a resume."""
     from gcmc.sampling.certificate import CertifySettings
 
     e = CERTIFIED.effort
-    return CertifySettings(
+    cs = CertifySettings(
         equilibration_moves=int(round(base.equilibration_moves * e)),
         production_moves=int(round(base.production_moves * e)),
         sample_every=base.sample_every,
@@ -194,6 +241,9 @@ def certify_settings(base: SamplingSettings, budget_cpu_s: float) -> CertifySett
         insertion_trials=base.insertion_trials,
         budget_cpu_s=float(budget_cpu_s),
     )
+    if model is None or state is None:
+        return cs
+    return replace(cs, max_production_moves=certificate_move_budget(model, state, cs, budget_cpu_s))
 
 
 def run_point_task(plan: BuildPlan, task: Task) -> Path:
@@ -233,7 +283,7 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
             budget = cfg.target.cpu_seconds_per_point if cfg.target is not None else 0.0
         if not budget > 0.0:
             raise ValueError(f"task {task.key}: the certified step needs a CPU budget > 0")
-        cs = certify_settings(cfg.sampling, budget)
+        cs = certify_settings(cfg.sampling, budget, model, state)
         eos = make_eos(cfg.eos, cfg.probe)
         cert = POINT_METHODS[s.point_method](model, state, task_seed(cfg, task), cs, eos)
         r = cert.result

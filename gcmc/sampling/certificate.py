@@ -84,6 +84,11 @@ class CertifySettings:
     overfill_factor: float = 20.0
     #: CPU seconds (process time) allowed in all; attempts double production until certified
     budget_cpu_s: float = 600.0
+    #: > 0: the budget in moves instead: attempts double production while the doubled
+    #: production per rung stays within this, and process time is not consulted, so that the
+    #: result depends on the seed and the settings alone (a resumed build gets the same
+    #: point); a build converts its CPU budget with gcmc.pipeline.escalation
+    max_production_moves: int = 0
     insertion_trials: int = 0
 
 
@@ -349,18 +354,41 @@ def certify_filled_point(
         cert = judge_preparations(cs, preps, boxp, production, time.process_time() - t_start)
         attempt += 1
         spent = time.process_time() - t_start
-        if cert.certified or spent * 3.0 > cs.budget_cpu_s:  # the next (doubled) would exceed
-            if not cert.certified and spent * 3.0 > cs.budget_cpu_s:
-                cert.flags.append(
-                    fl.flag_text(
-                        fl.BUDGET_SPENT,
-                        detail=f"{spent:.0f} CPU s after {attempt} attempt(s), the next "
-                        f"(2 x production) would exceed the {cs.budget_cpu_s:.0f} s budget",
-                    )
-                )
+        if cs.max_production_moves > 0:
+            over = 2 * production > cs.max_production_moves
+            detail = (
+                f"{production} production moves per rung after {attempt} attempt(s), the next "
+                f"(2 x production) would exceed the {cs.max_production_moves} move budget"
+            )
+        else:
+            over = spent * 3.0 > cs.budget_cpu_s  # the next (doubled) would exceed it
+            detail = (
+                f"{spent:.0f} CPU s after {attempt} attempt(s), the next "
+                f"(2 x production) would exceed the {cs.budget_cpu_s:.0f} s budget"
+            )
+        if cert.certified or over:
+            if not cert.certified:
+                cert.flags.append(fl.flag_text(fl.BUDGET_SPENT, detail=detail))
                 cert.result.flags = list(cert.flags)
             return cert
         production *= 2
+
+
+def attempt_moves(model: PoreModel, cs: CertifySettings, production: int) -> int:
+    """Moves (all boxes) of one attempt of :func:`certify_filled_point` at ``production``
+    moves per rung: the four preparations' chains in the hexagonal box (the annealed one's
+    cooling path: one equilibration per rung), the larger box's chain with its extra rungs."""
+    small = with_lateral_box(model, "hexagonal")
+    big = with_lateral_box(model, "hexagonal", cs.box_scale)
+    ratio = (big.box_lengths_nm[0] * big.box_lengths_nm[1]) / (
+        small.box_lengths_nm[0] * small.box_lengths_nm[1]
+    )
+    rungs = cs.hot_rungs + 1
+    big_rungs = math.ceil(cs.hot_rungs * math.sqrt(ratio)) + 1
+    per_rung = cs.equilibration_moves + production
+    return (
+        len(PREPARATIONS) * rungs * per_rung + rungs * cs.equilibration_moves + big_rungs * per_rung
+    )
 
 
 def judge_preparations(
