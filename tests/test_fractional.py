@@ -35,6 +35,7 @@ from gcmc.sampling.fractional import (
     FractionalSampler,
     end_log_ratio,
     excess_chemical_potential,
+    uncoupled_mean,
 )
 from gcmc.sampling.rng import seed_state
 from gcmc.sampling.statistics import block_average
@@ -236,3 +237,50 @@ def test_end_ratio_needs_both_ends() -> None:
     """A lambda series that never reached an end gives NaN, not a number."""
     lam = np.random.default_rng(0).uniform(0.3, 0.7, 1000)
     assert math.isnan(end_log_ratio(lam, np.zeros(20)))
+
+
+# =============================================================================================
+# 5. Grand canonical: the density at the activity of the EOS
+# =============================================================================================
+
+
+def _eos_density_at_activity(kind: str, t_star: float, ln_z_star: float) -> float:
+    """rho* with ln rho* + beta mu_ex(rho*) = ln z* (one liquid-like root above rho* = 0.4
+    at the supercritical state used)."""
+    from scipy.optimize import brentq
+
+    return brentq(
+        lambda r: math.log(r) + teqp_beta_mu_ex(kind, t_star, r) - ln_z_star, 0.4, 1.0, xtol=1e-12
+    )
+
+
+def test_grand_canonical_density_against_thol_eos() -> None:
+    """Dense bulk LJ, T* = 2.0, at the activity z* = rho* exp(beta mu_ex) that Thol et al.
+    (2016, teqp) give for rho* = 0.7: the density of the lambda ~ 0 states (grand canonical
+    states of the whole molecules, see gcmc.sampling.fractional) is that rho* within 3 block
+    standard errors plus the spread of the Johnson et al. (1993) and Kolafa-Nezbeda (1994)
+    densities at the same activity (teqp). Exercises the exchange transitions with
+    interactions (about 4e5 accepted)."""
+    t_star, rho_star, n0 = 2.0, 0.7, 256
+    ln_z = math.log(rho_star) + teqp_beta_mu_ex("LJ126_TholJPCRD2016", t_star, rho_star)
+    length = (n0 / rho_star) ** (1 / 3) * SIG_NM
+    model = PoreModel(probe=LJ, solid=Solid(), geometry=BULK, cutoff_nm=3 * SIG_NM, box_nm=length)
+    opts = FractionalOptions(
+        whole_displacement=0.5, fractional_displacement=0.1, max_dlambda=0.1, n_lambda_bins=50
+    )
+    z_nm3 = math.exp(ln_z) / SIG_NM**3
+    s = FractionalSampler(model, t_star * EPS_K, z_nm3, True, opts, rng_state=seed_state(2))
+    s.load_positions(lattice_positions(n0, length, 1), 0.0)
+    s.run(200 * n0)
+    s.flatten_weights(200_000, ln_f_start=0.5, ln_f_end=2e-3)
+    s.counters[:] = 0
+    n, lam, _ = run_samples(s, 2_000_000, 10)
+    assert s.exchanges > 100_000
+    # batch means over 16 blocks of 125 000 samples (1.25e6 moves, many N relaxation times)
+    rho, err = uncoupled_mean(n * SIG_NM**3 / model.volume_nm3, lam, len(s.weights))
+    assert math.isfinite(err) and err < 0.004
+    spread = max(
+        abs(rho_star - _eos_density_at_activity(k, t_star, ln_z))
+        for k in ("LJ126_Johnson1993", "LJ126_KolafaNezbeda1994")
+    )
+    assert abs(rho - rho_star) < 3.0 * err + spread, (rho, err, spread)

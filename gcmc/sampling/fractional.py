@@ -464,7 +464,21 @@ def run_fractional_moves(
                 counters[K_UP_TRY] += 1
                 lam2 = lam1 - 1.0
                 dff, dsf, ov = trial_energy(
-                    xf, yf, zf, -1, -1, n, -1, fp, ip, cell_xyz, cell_n, nbr, nbr_n, zbin_n, tail_table
+                    xf,
+                    yf,
+                    zf,
+                    -1,
+                    -1,
+                    n,
+                    -1,
+                    fp,
+                    ip,
+                    cell_xyz,
+                    cell_n,
+                    nbr,
+                    nbr_n,
+                    zbin_n,
+                    tail_table,
                 )
                 if not ov:
                     x2 = uniform(rng) * lx
@@ -807,9 +821,7 @@ class FractionalSampler:
         return int(self.counters[K_UP_ACC] + self.counters[K_DN_ACC])
 
 
-def unbiased_lambda_density(
-    lam: np.ndarray, weights: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
+def unbiased_lambda_density(lam: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(bin centres, ln p(lambda) with the bias removed, up to a constant) from lambda samples
     taken with the fixed bias ``weights``; -inf where a bin was never visited."""
     nb = len(weights)
@@ -846,3 +858,26 @@ def excess_chemical_potential(
     if not np.all(np.isfinite(blocks)):
         return est, float("nan")
     return est, float(blocks.std(ddof=1) / math.sqrt(len(blocks)))
+
+
+def uncoupled_mean(
+    values: np.ndarray, lam: np.ndarray, n_lambda_bins: int, n_blocks: int = 16
+) -> tuple[float, float]:
+    """Mean of ``values`` over the samples with lambda in the first bin (the states with the
+    fractional molecule uncoupled: grand canonical states of the whole molecules), and its
+    standard error from ``n_blocks`` contiguous time blocks (batch means). The offset of the
+    bin's states from lambda = 0 is O(1 / n_lambda_bins) of the change of the quantity
+    across lambda (for N: below one molecule / n_lambda_bins)."""
+    values = np.asarray(values, dtype=float)
+    first = np.asarray(lam) < 1.0 / int(n_lambda_bins)
+    if not first.any():
+        return float("nan"), float("nan")
+    est = float(values[first].mean())
+    means = []
+    for v, f in zip(
+        np.array_split(values, int(n_blocks)), np.array_split(first, int(n_blocks)), strict=True
+    ):
+        if not f.any():
+            return est, float("nan")
+        means.append(v[f].mean())
+    return est, float(np.std(means, ddof=1) / math.sqrt(len(means)))
