@@ -35,6 +35,7 @@ from gcmc.sampling.fractional import (
     FractionalSampler,
     end_log_ratio,
     excess_chemical_potential,
+    growth_transits,
     uncoupled_mean,
 )
 from gcmc.sampling.rng import seed_state
@@ -284,3 +285,12 @@ def test_grand_canonical_density_against_thol_eos() -> None:
         for k in ("LJ126_Johnson1993", "LJ126_KolafaNezbeda1994")
     )
     assert abs(rho - rho_star) < 3.0 * err + spread, (rho, err, spread)
+
+
+def test_growth_transits_counts_net_unit_moves() -> None:
+    """Exact (by construction): N + lambda 0.05 -> 0.95 -> 1.02 (crossed) -> 1.97 is two
+    transits; flickering around one integer is none."""
+    n = np.array([3, 3, 4, 4, 4, 5])
+    lam = np.array([0.05, 0.95, 0.02, 0.5, 0.97, 0.01])
+    assert growth_transits(n, lam) == 2
+    assert growth_transits(np.array([3, 4, 3, 4]), np.array([0.98, 0.03, 0.97, 0.01])) == 0

@@ -881,3 +881,22 @@ def uncoupled_mean(
             return est, float("nan")
         means.append(v[f].mean())
     return est, float(np.std(means, ddof=1) / math.sqrt(len(means)))
+
+
+def growth_transits(n: np.ndarray, lam: np.ndarray, margin: float = 0.1) -> int:
+    """Completed gradual exchanges in a sampled series: the number of times the extended
+    coordinate N + lambda (continuous through the exchange transitions) moved from within
+    ``margin`` of one integer to within ``margin`` of the next one (a molecule grown from
+    nothing to whole, or shrunk away), a hysteresis count. Unlike the accepted lambda
+    crossings it does not count a fractional molecule that flickers across an end."""
+    x = np.asarray(n, dtype=float) + np.asarray(lam, dtype=float)
+    if len(x) == 0:
+        return 0
+    count = 0
+    m = round(float(x[0]))
+    for v in x:
+        if abs(v - m) > 1.0 - margin:
+            k = round(float(v))
+            count += abs(k - m)
+            m = k
+    return count
