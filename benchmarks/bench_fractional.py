@@ -90,7 +90,7 @@ REGIMES = {
 }
 
 
-def run(name: str, moves: int) -> dict:
+def run(name: str, moves: int, opts: FractionalOptions) -> dict:
     model, t, z, pos, k, n_eos = REGIMES[name]()
     out: dict = {"regime": name, "moves": moves, "n_start": len(pos), "n_eos": n_eos}
     # whole-molecule insertion / deletion
@@ -112,7 +112,7 @@ def run(name: str, moves: int) -> dict:
         "mean_n": float(on.mean()),
     }
     # fractional molecule
-    s = FractionalSampler(model, t, z, True, FractionalOptions(), rng_state=seed_state(12))
+    s = FractionalSampler(model, t, z, True, opts, rng_state=seed_state(12))
     s.load_positions(pos, 0.0)
     s.run(10_000)
     c0 = time.process_time()
@@ -144,18 +144,28 @@ def main() -> None:
     ap.add_argument("--regimes", default=",".join(REGIMES))
     ap.add_argument("--moves", type=int, default=10_000_000)
     ap.add_argument("--json", default="")
+    ap.add_argument("--fractional-displacement", type=float, default=0.1)
+    ap.add_argument("--whole-displacement", type=float, default=0.5)
+    ap.add_argument("--max-dlambda", type=float, default=0.2)
     a = ap.parse_args()
     res = []
     for name in a.regimes.split(","):
-        r = run(name, a.moves)
+        opts = FractionalOptions(
+            whole_displacement=a.whole_displacement,
+            fractional_displacement=a.fractional_displacement,
+            max_dlambda=a.max_dlambda,
+        )
+        r = run(name, a.moves, opts)
+        r["options"] = {k: getattr(opts, k) for k in ("whole_displacement", "max_dlambda")}
+        r["options"]["fractional_displacement"] = opts.fractional_displacement
         res.append(r)
         print(json.dumps(r, indent=1, default=float), flush=True)
     if a.json:
         from pathlib import Path
 
-        from gcmc.files import write_text_atomic
+        from gcmc.files import atomic_write_text
 
-        write_text_atomic(Path(a.json), json.dumps(res, indent=1, default=float))
+        atomic_write_text(Path(a.json), json.dumps(res, indent=1, default=float))
 
 
 if __name__ == "__main__":
