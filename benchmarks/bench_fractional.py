@@ -15,7 +15,9 @@ slit: the end of a whole-molecule run from an empty pore) and run a fixed number
 "exchanges" = accepted insertions + deletions (CFCMC: accepted lambda crossings of 1 and 0);
 for CFCMC also "growth transits" (gcmc.sampling.fractional.growth_transits: N + lambda moved
 from one integer to the next, i.e. a molecule grown from nothing to whole or shrunk away,
-sampled every 10 moves), which does not count a fractional molecule flickering across an end.
+sampled every 10 moves), which does not count a fractional molecule flickering across an end;
+for the whole-molecule sampler the same count on N (sampled every 10 moves: an insertion
+undone within 10 moves is not counted).
 The whole-molecule sampler uses plain insertion (k = 1) in bulk and biased insertion k = 64
 in the slit (the point sampler's choice there). CFCMC's Wang-Landau flattening of W(lambda)
 is timed separately and not counted in its rate. CPU seconds are process time.
@@ -98,16 +100,18 @@ def run(name: str, moves: int, opts: FractionalOptions) -> dict:
     box.load_positions(pos)
     box.run(10_000)
     box.reset_counters()
-    ns = moves // 100
+    ns = moves // 10
     on, ou, os_ = np.zeros(ns, dtype=np.int64), np.zeros(ns), np.zeros(ns)
     c0 = time.process_time()
-    box.run(moves, 100, on, ou, os_, 0, np.zeros(box.n_bins))
+    box.run(moves, 10, on, ou, os_, 0, np.zeros(box.n_bins))
     dt = time.process_time() - c0
     out["whole"] = {
         "k": k,
         "cpu_s": dt,
         "exchanges": box.exchanges,
         "per_cpu_s": box.exchanges / dt,
+        "net_unit_changes": growth_transits(on, np.zeros(ns)),
+        "net_unit_changes_per_cpu_s": growth_transits(on, np.zeros(ns)) / dt,
         "acceptance": box.acceptance(),
         "mean_n": float(on.mean()),
     }
