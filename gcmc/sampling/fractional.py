@@ -260,7 +260,8 @@ def run_fractional_moves(
     record N (whole molecules), lambda and the total energy (K) at out_*[out_start + k].
     With fpar[P_WL_LNF] > 0 (Wang-Landau), after every move the bias of the current lambda
     bin is lowered by that amount and wl_hist of the bin incremented. Returns samples
-    written. The only compiled caller-less entry point of this module (called from Python)."""
+    written. Called from Python only, never from another compiled function (the engine's
+    rule for bit-reproducible builds, DEVELOPERS.md); the engine's helpers are inlined."""
     lx = fp[F_LX]
     ly = fp[F_LY]
     lz = fp[F_LZ]
