@@ -620,3 +620,23 @@ def test_kernel_roundtrip_through_library_keeps_the_verdict(good_file: Path, goo
     ours = {c.key: c.verdict for c in rep.criteria if c.key != "round_trip"}
     theirs = {c.key: c.verdict for c in good_report.criteria if c.key != "round_trip"}
     assert ours == theirs
+
+
+def test_henry_intercept_is_exact_for_langmuir_and_virial_forms() -> None:
+    # exact limit: n / (K_H f) -> 1 as f -> 0 for any isotherm that starts on the Henry law;
+    # the estimator extrapolates from the two lowest points, linearly in r and in 1/r
+    from gcmc.quality.criteria import henry_intercept
+
+    k_h, f = 2e-4, np.array([1.0e3, 2.47e3])
+    sig = np.array([1e-4, 1e-4])
+    for n in (k_h * f / (1.0 + 1e-4 * f), k_h * f * (1.0 + 1e-4 * f)):  # b f0 = a f0 = 0.1
+        est, se, allow, slope = henry_intercept(n, sig, f, k_h)
+        # one of the two extrapolations is exact; the other errs by second order in b f
+        assert abs(est - 1.0) <= allow + 1e-12 and allow < 0.03
+        assert 0.8 < slope < 1.2 and se > 0
+    # a Henry constant 5 % off is told apart (the points are the Langmuir ones, exact K_H)
+    n = k_h * f / (1.0 + 1e-4 * f)
+    est, se, allow, _ = henry_intercept(n, sig, f, 1.05 * k_h)
+    assert abs(est - 1.0) > 3 * se + allow
+    # no molecules at the lowest point: undefined, not a pass
+    assert np.isnan(henry_intercept(np.array([0.0, 1e-3]), sig, f, k_h)[0])

@@ -464,6 +464,37 @@ def test_target_error_stops_easy_points_early_and_hard_ones_at_the_budget() -> N
     assert not hard.result.converged
 
 
+def test_absolute_error_floor_meets_the_target_at_low_loading() -> None:
+    """The precision target with an absolute floor (the experiment's absolute noise, as in
+    gcmc check's point_errors): a dilute methane point (1.2 nm, 10 kPa, about 0.3 molecules;
+    replica errors about 1.5 % after 100 000 moves) cannot reach 0.5 % relative error in its
+    budget, so without a floor it runs to the budget and is flagged target_not_reached; with
+    a floor of 5 molecules (error allowed: 0.025 molecules) it stops at production_moves;
+    with target_flags off, a missed target leaves no flag (a quality-target build judges the
+    point in gcmc check instead)."""
+    model = replace(methane_slit(1.2), box_nm=2.4)
+    state = ThermoState(temperature_K=298.15, fugacity_Pa=1.0e4)
+    base = dict(
+        equilibration_moves=5_000,
+        production_moves=20_000,
+        sample_every=4,
+        insertion_trials=1,
+        replicas=2,
+        max_production_moves=100_000,
+        target_rel_stderr=0.005,
+    )
+    strict = simulate_point(model, state, SamplingSettings(**base), 5).result
+    budget_all = 2 * (100_000 + 5_000) + 2_500  # replicas x (budget + eq) + over-fill
+    assert strict.moves == budget_all, strict.moves
+    assert fl.has_flag(strict.flags, fl.TARGET_NOT_REACHED), strict.flags
+    floor = 5.0 / model.pore_volume_nm3  # 5 molecules as a density of the pore volume
+    met = simulate_point(model, state, SamplingSettings(**base, stderr_floor_per_nm3=floor), 5)
+    assert met.result.moves == 2 * (20_000 + 5_000) + 2_500, met.result.moves
+    assert met.result.converged, met.result.flags
+    quiet = simulate_point(model, state, SamplingSettings(**base, target_flags=False), 5).result
+    assert quiet.moves == budget_all and not fl.has_flag(quiet.flags, fl.TARGET_NOT_REACHED)
+
+
 def test_larger_move_budget_extends_only_points_not_yet_certified() -> None:
     """Without a precision target, a move budget above production_moves extends production
     only while a point is not certified. A short run of a methane pore fluid (1.2 nm, 0.3 MPa,

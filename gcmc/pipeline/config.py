@@ -33,6 +33,7 @@ from gcmc.physics.potentials import (
     default_cutoff_nm,
     lateral_box_nm,
 )
+from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.quality.target import QualityTarget
 from gcmc.sampling.point import SamplingSettings
 
@@ -140,9 +141,12 @@ class RunConfig:
             "eos": self.eos,
             # the key of replica_exchange stays "exchange" (its name before the rename), so
             # that configs built before keep their hash and their kernels stay up to date
+            # stderr_floor_per_nm3 enters only where set, for the same reason
             "sampling": {
                 ("exchange" if k == "replica_exchange" else k): v
                 for k, v in self.sampling.__dict__.items()
+                if not (k == "stderr_floor_per_nm3" and v == 0.0)
+                and not (k == "target_flags" and v is True)
             },
             "fit": self.fit.__dict__,
             "seed": self.seed,
@@ -513,6 +517,16 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         raise InputError(f"{p}: seed: expected a non-negative integer, got {seed!r}")
 
     target = _target(f"{p}: target", data["target"]) if "target" in data else None
+    if target is not None and "target_rel_stderr" not in data.get("sampling", {}):
+        # the sampler aims at the target's point-error rule (gcmc check's point_errors, with
+        # the experiment's absolute noise as the floor): a point runs on, within
+        # max_production_moves, until its error meets it, instead of being rerun later
+        sampling = replace(
+            sampling,
+            target_rel_stderr=target.target_rel_stderr,
+            stderr_floor_per_nm3=target.noise_abs_mmol_cm3 / MMOL_PER_CM3_PER_NM3,
+            target_flags=False,
+        )
 
     return RunConfig(
         path=path,

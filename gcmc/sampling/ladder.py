@@ -66,6 +66,7 @@ from gcmc.sampling.point import (
     _blocked_result,
     _ReplicaRun,
     adapted_step,
+    precise_enough,
     shared_insertion_trials,
 )
 from gcmc.sampling.rng import seed_state
@@ -147,6 +148,7 @@ class _Ladder:
         capacity: int,
     ):
         self.settings = settings
+        self.volume = model.pore_volume_nm3
         self.round_moves = round_moves
         box_seeds = seed.spawn(len(states) + 1)
         self.swap_rng = np.random.default_rng(box_seeds[-1])
@@ -280,7 +282,6 @@ class _Ladder:
         for rung in self.rungs:
             rung.counters[:] = 0
             rung.moves = 0
-        target = s.target_rel_stderr
         total = s.production_capacity
         n_rounds = min(
             self.rounds_for(total), len(self.rungs[0].n) * s.sample_every // self.round_moves
@@ -290,7 +291,7 @@ class _Ladder:
         for r in range(n_rounds):
             self.run_round()
             if s.extends and r + 1 >= min_rounds and (r + 1) % check_every == 0:
-                if all(_target_met(rung, target) for rung in self.rungs):
+                if all(_target_met(rung, s, self.volume) for rung in self.rungs):
                     break
 
     def replica_runs(self) -> list[_ReplicaRun]:
@@ -325,12 +326,14 @@ class _Ladder:
         return runs
 
 
-def _target_met(rung: _Rung, target: float) -> bool:
+def _target_met(rung: _Rung, settings: SamplingSettings, volume: float) -> bool:
     if rung.written < MIN_SAMPLES_TARGET:
         return False
     x = rung.n[: rung.written].astype(float)
     est = st.block_average(x)
-    if not (est.reliable and est.mean > 0 and (target <= 0 or est.stderr / est.mean <= target)):
+    if not (
+        est.reliable and est.mean > 0 and precise_enough(est.stderr, est.mean, settings, volume)
+    ):
         return est.mean == 0.0 and np.ptp(x) == 0  # an empty rung has nothing to converge
     return st.drift_test(x).passed
 
