@@ -294,3 +294,15 @@ def test_growth_transits_counts_net_unit_moves() -> None:
     lam = np.array([0.05, 0.95, 0.02, 0.5, 0.97, 0.01])
     assert growth_transits(n, lam) == 2
     assert growth_transits(np.array([3, 4, 3, 4]), np.array([0.98, 0.03, 0.97, 0.01])) == 0
+
+
+def test_bad_options_name_the_field() -> None:
+    """Bad input: a one-line error naming the field."""
+    from gcmc.errors import InputError
+
+    model = PoreModel(probe=LJ, solid=Solid(), geometry=BULK, cutoff_nm=1.02, box_nm=2.04)
+    with pytest.raises(InputError, match="max_dlambda"):
+        FractionalSampler(model, 240.0, 1.0, options=FractionalOptions(max_dlambda=1.5))
+    s = FractionalSampler(model, 240.0, 1.0)
+    with pytest.raises(InputError, match="coupling"):
+        s.place_fractional(1.2)
