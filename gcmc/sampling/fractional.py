@@ -147,6 +147,9 @@ def _frac_pairs(x, y, z, lam, skip_cell, skip_slot, fp, ip, alpha, cell_xyz, cel
     lx = fp[F_LX]
     ly = fp[F_LY]
     lz = fp[F_LZ]
+    ilx = 1.0 / lx
+    ily = 1.0 / ly
+    ilz = 1.0 / lz
     rc2 = fp[F_RC2]
     inv_sig2 = 1.0 / fp[F_SIG2]
     a = alpha * (1.0 - lam) * (1.0 - lam)
@@ -162,22 +165,24 @@ def _frac_pairs(x, y, z, lam, skip_cell, skip_slot, fp, ip, alpha, cell_xyz, cel
             continue
         skip = (skip_slot + 1) * np.int64(c == skip_cell) - 1
         e = 0.0
-        for j in range(n):
+        # as the engine's pair_energy: whole SIMD vectors over the slots rounded up to a
+        # multiple of 8 (the capacity leaves room), padding, the skipped slot and pairs
+        # beyond r_c masked by a select, an overlapping pair adding E.OVERLAP_FLAG
+        for j in range((n + 7) & -8):
             dx = x - cell_xyz[c, 0, j]
             dy = y - cell_xyz[c, 1, j]
             dz = z - cell_xyz[c, 2, j]
-            dx -= lx * np.floor(dx / lx + 0.5)
-            dy -= ly * np.floor(dy / ly + 0.5)
-            dz -= periodic_z * lz * np.floor(dz / lz + 0.5)
+            dx -= lx * np.floor(dx * ilx + 0.5)
+            dy -= ly * np.floor(dy * ily + 0.5)
+            dz -= periodic_z * lz * np.floor(dz * ilz + 0.5)
             r2 = dx * dx + dy * dy + dz * dz
-            if j == skip or r2 >= rc2:
-                continue
             s2 = r2 * inv_sig2
             inv = 1.0 / (a + s2 * s2 * s2)
             t = inv * inv - inv
-            if t > thr:
-                return 0.0, True
-            e += t
+            masked = (j == skip) | (j >= n) | (r2 >= rc2)
+            e += 0.0 if masked else (E.OVERLAP_FLAG if t > thr else t)
+        if e >= 0.5 * E.OVERLAP_FLAG:
+            return 0.0, True
         acc += e
     return pre * acc, False
 
