@@ -318,24 +318,26 @@ def test_target_rel_stderr_key_and_its_old_name(tmp_path: Path) -> None:
 
 
 def test_quality_target_aims_the_sampler_at_its_point_error_rule(tmp_path: Path) -> None:
-    """A [target] sets the sampler's precision target to its own point-error rule (relative
-    error, with the experiment's absolute noise as the floor; no target_not_reached flag: the
-    check judges such points); an explicit [sampling] target_rel_stderr is kept as given."""
+    """[sampling] target_rel_stderr = "target" sets the sampler's precision target to the
+    [target]'s point-error rule (relative error, with the experiment's absolute noise as the
+    floor; no target_not_reached flag: the check judges such points). Without it nothing
+    changes (the config's hash neither), and "target" without a [target] is refused."""
     from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 
     text = (REPO / "tests" / "configs" / "refine.toml").read_text()
-    cfg = load_config(REPO / "tests" / "configs" / "refine.toml")
+    plain = load_config(REPO / "tests" / "configs" / "refine.toml")
+    assert plain.sampling.target_rel_stderr == 0 and plain.sampling.target_flags is True
+    path = tmp_path / "r.toml"
+    aim = 'sample_every = 20\ntarget_rel_stderr = "target"\n'
+    path.write_text(text.replace("sample_every = 20\n", aim))
+    cfg = load_config(path)
     t = cfg.target
     assert t is not None
     assert cfg.sampling.target_rel_stderr == t.target_rel_stderr
     assert cfg.sampling.stderr_floor_per_nm3 == pytest.approx(
         t.noise_abs_mmol_cm3 / MMOL_PER_CM3_PER_NM3
     )
-    assert cfg.sampling.target_flags is False
-    path = tmp_path / "r.toml"
-    path.write_text(
-        text.replace("sample_every = 20\n", "sample_every = 20\ntarget_rel_stderr = 0\n")
-    )
-    own = load_config(path)
-    assert own.sampling.target_rel_stderr == 0 and own.sampling.target_flags is True
-    assert own.sampling.stderr_floor_per_nm3 == 0 and own.task_hash != cfg.task_hash
+    assert cfg.sampling.target_flags is False and cfg.task_hash != plain.task_hash
+    path.write_text(text.replace("sample_every = 20\n", aim).split("[target]")[0])
+    with pytest.raises(InputError, match='target_rel_stderr: "target" needs a \\[target\\]'):
+        load_config(path)

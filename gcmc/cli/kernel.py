@@ -20,6 +20,7 @@ from gcmc.files import atomic_write
 from gcmc.kernel.flags import count_kinds
 
 if TYPE_CHECKING:
+    from gcmc.kernel.data import KernelData
     from gcmc.kernel.reader import Kernel
 
 SHOW_HELP = """Verify a kernel file (schema version and checksums) and print a summary: model,
@@ -148,6 +149,36 @@ def _flag_tokens(flags: np.ndarray) -> Counter:
     return count_kinds(np.asarray(flags).ravel())
 
 
+def equilibrium_line(d: KernelData) -> str:
+    """The `gcmc show` line on the equilibrium transition ("" without a desorption branch):
+    the pores whose branches part (gcmc.kernel.equilibrium), the pressures that bracket their
+    loops, and why no transition is given."""
+    from gcmc.kernel import equilibrium as eq
+
+    found = eq.kernel_transitions(d)
+    if not found:
+        return ""
+    p0 = np.asarray(d.saturation_pressures_Pa, dtype=float)
+    loops = [(t, j, r) for t, j, r in found if np.isfinite(r.loop_pressure_range_Pa[0])]
+    with_eq = [r for _, _, r in found if r.has_transition]
+    reasons = Counter(r.reason for _, _, r in found if r.reason and r.reason != eq.NO_LOOP)
+    text = f"hysteresis loop in {len(loops)}/{len(found)} accessible pores"
+    if loops:
+        rel = all(np.isfinite(p0[t]) for t, _, _ in loops)
+        lo = [r.loop_pressure_range_Pa[0] / (p0[t] if rel else 1.0) for t, _, r in loops]
+        hi = [r.loop_pressure_range_Pa[1] / (p0[t] if rel else 1.0) for t, _, r in loops]
+        h = sorted({float(d.widths_H_nm[j]) for _, j, _ in loops})
+        h_text = f"{h[0]:g}" + (f"-{h[-1]:g}" if len(h) > 1 else "")
+        text += (
+            f" (H {h_text} nm; bracketed by {'p/p0' if rel else 'p'} "
+            f"{min(lo):.3g}-{max(hi):.3g}{'' if rel else ' Pa'})"
+        )
+    text += f"; equilibrium transition in {len(with_eq)}"
+    if reasons:
+        text += "; none: " + "; ".join(f"{v} {k}" for k, v in reasons.most_common())
+    return text
+
+
 def summary(kernel: Kernel) -> str:
     """The text printed by `gcmc show`."""
     d = kernel.data
@@ -202,6 +233,9 @@ def summary(kernel: Kernel) -> str:
             f"{branch}: {simulated} simulated, {flagged} flagged ({detail}), "
             f"{not_conv} unconverged",
         )
+    eq_line = equilibrium_line(d)
+    if eq_line:
+        add("equilibrium", eq_line)
     acc = np.asarray(d.accessible, dtype=bool)
     smallest = []
     for t, temp in enumerate(d.temperatures_K):

@@ -472,6 +472,10 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
 
     sf = _Fields(f"{p}: sampling", data.get("sampling", {}))
     d = SamplingSettings()
+    # target_rel_stderr = "target": production aims at the [target]'s point-error rule
+    aim_at_target = sf.table.get("target_rel_stderr") == "target"
+    if aim_at_target:
+        sf.table = {k: v for k, v in sf.table.items() if k != "target_rel_stderr"}
     sampling = replace(
         d,
         equilibration_moves=sf.integer("equilibration_moves", d.equilibration_moves, 0),
@@ -481,7 +485,11 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         biased_trials=sf.integer("biased_trials", d.biased_trials, 2),
         bias_threshold=sf.number("bias_threshold", d.bias_threshold),  # type: ignore[arg-type]
         replicas=sf.integer("replicas", d.replicas, 1),
-        target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
+        target_rel_stderr=(
+            0.0
+            if aim_at_target
+            else sf.number("target_rel_stderr", d.target_rel_stderr, positive=False)
+        ),
         max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),
         replica_exchange=_replica_exchange(sf, d.replica_exchange),
     )
@@ -517,10 +525,12 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         raise InputError(f"{p}: seed: expected a non-negative integer, got {seed!r}")
 
     target = _target(f"{p}: target", data["target"]) if "target" in data else None
-    if target is not None and "target_rel_stderr" not in data.get("sampling", {}):
+    if aim_at_target:
         # the sampler aims at the target's point-error rule (gcmc check's point_errors, with
         # the experiment's absolute noise as the floor): a point runs on, within
         # max_production_moves, until its error meets it, instead of being rerun later
+        if target is None:
+            raise InputError(f'{p}: sampling.target_rel_stderr: "target" needs a [target] table')
         sampling = replace(
             sampling,
             target_rel_stderr=target.target_rel_stderr,
