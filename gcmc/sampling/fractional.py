@@ -37,6 +37,11 @@ detailed balance in this expanded ensemble):
   the two are each other's reverse (the same |d|). Without the grand canonical flag a lambda'
   outside [0, 1] is rejected (fixed N).
 
+Optionally (``FractionalOptions.n_window`` > 0) the bias depends on (N, lambda) for N in a
+window [n_min, n_min + n_window) (moves that would leave it are rejected once inside), so that
+Wang-Landau flattens N within the window as well; ``window_log_distribution`` then gives the
+grand canonical ln p(N) in the window from the uncoupled states.
+
 Measurements. With the bias removed, p(lambda) at the ends gives the excess chemical potential
 (Shi & Maginn 2007): at fixed N, p(1)/p(0) = Q_{N+1}/(V Q_N) = exp(-beta mu_ex) (the ratio of
 the configurational integrals, Widom's relation), so beta mu_ex = -ln[p(1)/p(0)] with
@@ -102,8 +107,8 @@ from gcmc.sampling.rng import below, uniform
 P_ALPHA, P_DLAM, P_WHOLE, P_FRAC, P_DMAX_F, P_WL_LNF = 0, 1, 2, 3, 4, 5
 N_PPARAMS = 6
 # ipar indices
-Q_GRAND, Q_NLBINS = 0, 1
-N_QPARAMS = 2
+Q_GRAND, Q_NLBINS, Q_NMIN, Q_NWIN = 0, 1, 2, 3
+N_QPARAMS = 4
 # fstate indices
 S_X, S_Y, S_Z, S_LAM, S_UFF, S_USF = 0, 1, 2, 3, 4, 5
 N_STATE = 6
@@ -239,6 +244,19 @@ def _lam_bin(lam, nb):
     return b if b < nb else nb - 1
 
 
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
+def _widx(n, lam, nlb, nmin, nwin):
+    """Index of the bias of (N = n, lambda): the lambda bin (nwin = 0), or the bin of N in
+    the window [nmin, nmin + nwin) times nlb plus the lambda bin; -1 outside the window."""
+    b = _lam_bin(lam, nlb)
+    if nwin == 0:
+        return b
+    k = n - nmin
+    if k < 0 or k >= nwin:
+        return -1
+    return k * nlb + b
+
+
 @njit(cache=True, fastmath=MOVE_FASTMATH, error_model="numpy", boundscheck=False, _nrt=False)
 def run_fractional_moves(
     n_moves,
@@ -291,6 +309,8 @@ def run_fractional_moves(
     wl_lnf = fpar[P_WL_LNF]
     grand = ipar[Q_GRAND] == 1
     nlb = ipar[Q_NLBINS]
+    nmin = ipar[Q_NMIN]
+    nwin = ipar[Q_NWIN]
     written = 0
     for move in range(n_moves):
         n = ip[I_N]
@@ -441,7 +461,8 @@ def run_fractional_moves(
         else:
             # ---- change of lambda, with the exchange transitions beyond the ends
             lam1 = lam + dlam * (2.0 * uniform(rng) - 1.0)
-            w0 = weights[_lam_bin(lam, nlb)]
+            i0 = _widx(n, lam, nlb, nmin, nwin)
+            w0 = weights[i0] if i0 >= 0 else 0.0
             if 0.0 <= lam1 <= 1.0:
                 counters[K_LAM_TRY] += 1
                 uff1, usf1, ov = _frac_energy(
@@ -465,7 +486,9 @@ def run_fractional_moves(
                 )
                 if not ov:
                     du = uff1 + usf1 - fstate[S_UFF] - fstate[S_USF]
-                    ln_acc = -beta * du + weights[_lam_bin(lam1, nlb)] - w0
+                    i1 = _widx(n, lam1, nlb, nmin, nwin)
+                    w1 = weights[i1] if i1 >= 0 else 0.0
+                    ln_acc = -beta * du + w1 - w0
                     if ln_acc >= 0.0 or uniform(rng) < math.exp(ln_acc):
                         counters[K_LAM_ACC] += 1
                         fstate[S_LAM] = lam1
@@ -475,6 +498,8 @@ def run_fractional_moves(
                 # insertion: the fractional molecule becomes whole; a new one at lam1 - 1
                 counters[K_UP_TRY] += 1
                 lam2 = lam1 - 1.0
+                i1 = _widx(n + 1, lam2, nlb, nmin, nwin)
+                w1 = weights[i1] if i1 >= 0 else 0.0
                 dff, dsf, ov = trial_energy(
                     xf,
                     yf,
@@ -492,6 +517,8 @@ def run_fractional_moves(
                     zbin_n,
                     tail_table,
                 )
+                if i0 >= 0 and i1 < 0:
+                    ov = True  # the N window is not left
                 if not ov:
                     x2 = uniform(rng) * lx
                     y2 = uniform(rng) * ly
@@ -521,7 +548,7 @@ def run_fractional_moves(
                     accepted = False
                     if not ov2:
                         du = dff + dsf + uff2 + usf2 - fstate[S_UFF] - fstate[S_USF]
-                        ln_acc = -beta * du + weights[_lam_bin(lam2, nlb)] - w0
+                        ln_acc = -beta * du + w1 - w0
                         ln_acc += math.log(zv / (n + 1.0))
                         if ln_acc >= 0.0 or uniform(rng) < math.exp(ln_acc):
                             accepted = True
@@ -542,8 +569,10 @@ def run_fractional_moves(
             elif grand and lam1 < 0.0:
                 # deletion: the fractional molecule vanishes; a whole one becomes fractional
                 counters[K_DN_TRY] += 1
-                if n > 0:
+                i1 = _widx(n - 1, lam1 + 1.0, nlb, nmin, nwin)
+                if n > 0 and not (i0 >= 0 and i1 < 0):  # the N window is not left
                     lam2 = lam1 + 1.0
+                    w1 = weights[i1] if i1 >= 0 else 0.0
                     i = below(rng, n)
                     c = pid_cell[i]
                     s = pid_slot[i]
@@ -589,7 +618,7 @@ def run_fractional_moves(
                     )
                     if not ov2:
                         du = uff2 + usf2 - dff0 - dsf0 - fstate[S_UFF] - fstate[S_USF]
-                        ln_acc = -beta * du + weights[_lam_bin(lam2, nlb)] - w0
+                        ln_acc = -beta * du + w1 - w0
                         ln_acc += math.log(n / zv)
                         if ln_acc >= 0.0 or uniform(rng) < math.exp(ln_acc):
                             counters[K_DN_ACC] += 1
@@ -607,9 +636,10 @@ def run_fractional_moves(
             else:
                 counters[K_LAM_TRY] += 1  # fixed N: a lambda beyond the ends is rejected
         if wl_lnf > 0.0:
-            b = _lam_bin(fstate[S_LAM], nlb)
-            weights[b] -= wl_lnf
-            wl_hist[b] += 1
+            b = _widx(ip[I_N], fstate[S_LAM], nlb, nmin, nwin)
+            if b >= 0:
+                weights[b] -= wl_lnf
+                wl_hist[b] += 1
         if sample_every > 0 and (move + 1) % sample_every == 0:
             k = out_start + written
             out_n[k] = ip[I_N]
@@ -665,6 +695,9 @@ class FractionalOptions:
     max_dlambda: float = 0.2
     soft_core_alpha: float = 0.5
     n_lambda_bins: int = 50
+    #: 0: the bias depends on lambda only; > 0: on (N, lambda) for N in a window of this many
+    #: values starting at ``FractionalSampler.set_window``'s n_min (moves leaving it rejected)
+    n_window: int = 0
     max_fractional_displacement_nm: float | None = None
 
     def validate(self) -> None:
@@ -710,13 +743,21 @@ class FractionalSampler:
         self.ipar = np.zeros(N_QPARAMS, dtype=np.int64)
         self.ipar[Q_GRAND] = 1 if grand else 0
         self.ipar[Q_NLBINS] = int(o.n_lambda_bins)
-        self.weights = np.zeros(int(o.n_lambda_bins))
-        self.wl_hist = np.zeros(int(o.n_lambda_bins), dtype=np.int64)
+        nw = max(1, int(o.n_window))
+        self.ipar[Q_NWIN] = int(o.n_window)
+        self.weights = np.zeros(nw * int(o.n_lambda_bins))
+        self.wl_hist = np.zeros(nw * int(o.n_lambda_bins), dtype=np.int64)
         self.counters = np.zeros(N_FCOUNTERS, dtype=np.int64)
         self.fstate = np.zeros(N_STATE)
         lx, ly, lz = model.box_lengths_nm
         self.fstate[S_X], self.fstate[S_Y], self.fstate[S_Z] = 0.5 * lx, 0.5 * ly, 0.5 * lz
         self._slit = model.geometry == SLIT
+
+    def set_window(self, n_min: int) -> None:
+        """First N of the (N, lambda) bias window (with ``n_window`` > 0)."""
+        if int(n_min) < 0:
+            raise InputError(f"n_min: {n_min} must be >= 0")
+        self.ipar[Q_NMIN] = int(n_min)
 
     @property
     def n_whole(self) -> int:
@@ -913,3 +954,20 @@ def growth_transits(n: np.ndarray, lam: np.ndarray, margin: float = 0.1) -> int:
             count += abs(k - m)
             m = k
     return count
+
+
+def window_log_distribution(
+    n: np.ndarray, lam: np.ndarray, weights: np.ndarray, n_min: int, n_window: int
+) -> np.ndarray:
+    """ln p(N) of the grand canonical ensemble (up to a constant) for N in the bias window
+    [n_min, n_min + n_window), from samples taken with a fixed (N, lambda) bias: the
+    uncoupled states (lambda in the first bin) are grand canonical states of the N whole
+    molecules, so p(N) ~ h(N, first bin) exp(-W(N, first bin)); -inf where never visited."""
+    w = np.asarray(weights).reshape(int(n_window), -1)
+    nlb = w.shape[1]
+    sel = np.asarray(lam) < 1.0 / nlb
+    k = np.asarray(n)[sel] - int(n_min)
+    k = k[(k >= 0) & (k < n_window)]
+    h = np.bincount(k, minlength=int(n_window)).astype(float)
+    with np.errstate(divide="ignore"):
+        return np.log(h) - w[:, 0]
