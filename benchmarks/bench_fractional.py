@@ -47,6 +47,7 @@ from gcmc.sampling.fractional import (  # noqa: E402
     FractionalSampler,
     growth_transits,
     uncoupled_mean,
+    window_log_distribution,
 )
 from gcmc.sampling.rng import seed_state  # noqa: E402
 
@@ -92,7 +93,9 @@ REGIMES = {
 }
 
 
-def run(name: str, moves: int, opts: FractionalOptions) -> dict:
+def run(
+    name: str, moves: int, opts: FractionalOptions, n_min: int = 0, wl_checks: int = 200
+) -> dict:
     model, t, z, pos, k, n_eos = REGIMES[name]()
     out: dict = {"regime": name, "moves": moves, "n_start": len(pos), "n_eos": n_eos}
     # whole-molecule insertion / deletion
@@ -117,10 +120,11 @@ def run(name: str, moves: int, opts: FractionalOptions) -> dict:
     }
     # fractional molecule
     s = FractionalSampler(model, t, z, True, opts, rng_state=seed_state(12))
+    s.set_window(n_min)
     s.load_positions(pos, 0.0)
     s.run(10_000)
     c0 = time.process_time()
-    s.flatten_weights(200_000, ln_f_start=0.5, ln_f_end=2e-3, max_checks=200)
+    lnf = s.flatten_weights(200_000, ln_f_start=0.5, ln_f_end=2e-3, max_checks=wl_checks)
     wl = time.process_time() - c0
     s.counters[:] = 0
     ns = moves // 10
@@ -128,10 +132,13 @@ def run(name: str, moves: int, opts: FractionalOptions) -> dict:
     c0 = time.process_time()
     s.run(moves, 10, n, lam, u)
     dt = time.process_time() - c0
-    mean_n, err_n = uncoupled_mean(n, lam, len(s.weights))
+    # with an (N, lambda) bias the plain mean is biased: window_ln_p below instead
+    mean_n, err_n = uncoupled_mean(n, lam, opts.n_lambda_bins) if not opts.n_window else (0, 0)
     out["fractional"] = {
         "cpu_s": dt,
         "wang_landau_cpu_s": wl,
+        "wang_landau_final_ln_f": lnf,
+        "n_range": [int(n.min()), int(n.max())],
         "exchanges": s.exchanges,
         "per_cpu_s": s.exchanges / dt,
         "growth_transits": growth_transits(n, lam),
@@ -140,6 +147,10 @@ def run(name: str, moves: int, opts: FractionalOptions) -> dict:
         "mean_n_uncoupled": mean_n,
         "stderr_n_uncoupled": err_n,
     }
+    if opts.n_window > 0:
+        lp = window_log_distribution(n, lam, s.weights, n_min, opts.n_window)
+        out["fractional"]["window_ln_p"] = (lp - np.max(lp[np.isfinite(lp)])).tolist()
+        out["fractional"]["window_n_min"] = n_min
     return out
 
 
@@ -151,6 +162,11 @@ def main() -> None:
     ap.add_argument("--fractional-displacement", type=float, default=0.1)
     ap.add_argument("--whole-displacement", type=float, default=0.5)
     ap.add_argument("--max-dlambda", type=float, default=0.2)
+    ap.add_argument("--lambda-bins", type=int, default=50)
+    ap.add_argument(
+        "--window", default="", help="N_MIN:N_WINDOW: bias on (N, lambda) over that N window"
+    )
+    ap.add_argument("--wl-checks", type=int, default=200, help="Wang-Landau checks at most")
     a = ap.parse_args()
     res = []
     for name in a.regimes.split(","):
@@ -158,10 +174,14 @@ def main() -> None:
             whole_displacement=a.whole_displacement,
             fractional_displacement=a.fractional_displacement,
             max_dlambda=a.max_dlambda,
+            n_lambda_bins=a.lambda_bins,
+            n_window=int(a.window.split(":")[1]) if a.window else 0,
         )
-        r = run(name, a.moves, opts)
+        n_min = int(a.window.split(":")[0]) if a.window else 0
+        r = run(name, a.moves, opts, n_min, a.wl_checks)
         r["options"] = {k: getattr(opts, k) for k in ("whole_displacement", "max_dlambda")}
         r["options"]["fractional_displacement"] = opts.fractional_displacement
+        r["options"]["window"] = a.window
         res.append(r)
         print(json.dumps(r, indent=1, default=float), flush=True)
     if a.json:
