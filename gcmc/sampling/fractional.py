@@ -60,7 +60,8 @@ Status: validated in tests/test_fractional.py; not used by builds. Measured agai
 whole-molecule insertion in benchmarks/README.md ("Fractional-molecule exchange (CFCMC)"):
 with a bias in lambda only it completes 0.3-1.2x as many exchanges per CPU second as plain
 insertion in the dense bulk liquid (more only where insertion is accepted below ~4e-4), and
-none in the filled 3 sigma argon slit.
+none in the filled 3 sigma argon slit; with the (N, lambda) window, one exploratory run there
+made 39 in 10^7 moves (4.7x the rate of k = 64 insertion).
 """
 
 from __future__ import annotations
