@@ -83,10 +83,10 @@ from gcmc.quality.resolution import (
     DEFAULT_RESOLUTION_FRACTION,
     NoiseModel,
     check_pressures,
+    curvature,
     extrapolate_ends,
     kernel_relative_errors,
     resolution_from_matrix,
-    second_derivative,
 )
 
 _RANK = {"pass": 0, "info": 0, "warn": 1, "fail": 2}
@@ -440,8 +440,7 @@ def member_matrices(
     if cols.size >= 3:
         ka, wa = k[:, cols], grid[cols]
         d1[:, cols] = np.gradient(ka, wa, axis=1, edge_order=2)
-        d2a, coef = second_derivative(ka, wa)
-        d2[:, cols] = d2a
+        sk2 = None
         if correct_kernel_noise:
             d = member.kernel.data
             t = member.kernel.temperature_index(member.temperature_K)
@@ -450,13 +449,9 @@ def member_matrices(
             w_own = np.asarray(d.widths_w_nm, float)[own]
             rel = np.array([np.interp(wa, w_own, row) for row in rel_own])
             sk2 = (rel * ka) ** 2
-            v = np.zeros_like(ka)
-            v[:, 1:-1] = (
-                coef[0, 1:-1] ** 2 * sk2[:, :-2]
-                + coef[1, 1:-1] ** 2 * sk2[:, 1:-1]
-                + coef[2, 1:-1] ** 2 * sk2[:, 2:]
-            )
-            v[:, 0], v[:, -1] = v[:, 1], v[:, -2]
+        d2a, v = curvature(ka, wa, d1[:, cols], sk2, member.noise.sigma(ka))
+        d2[:, cols] = d2a
+        if v is not None:
             var2[:, cols] = v
     elif cols.size:
         acc[:] = False  # fewer than 3 accessible set widths: no derivative evidence

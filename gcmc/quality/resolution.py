@@ -38,8 +38,10 @@ are no longer resolved is the crossing dw_2(w) = rho w above the widest resolved
 resolved.
 
 Derivatives come from the kernel's isotherms at its own widths: dK/dw by numpy.gradient
-(second order: central in the interior, one-sided at the ends); d2K/dw2 by the three-point
-formula 2 [(K+ - K)/h+ - (K - K-)/h-] / (h+ + h-) in the interior; at the two end widths
+(second order: central in the interior, one-sided at the ends); d2K/dw2 by a least-squares
+the three-point formula 2 [(K+ - K)/h+ - (K - K-)/h-] / (h+ + h-) in the interior, or, where
+its noise from the kernel's own errors is as large as the curvature itself (a dense or uneven
+width axis), a least-squares quadratic over the widths within 10 % of w; at the two end widths
 dw_2 is extrapolated linearly in ln dw_2 from the two nearest interior widths. The kernel's own
 statistical errors (of the stored fits, from their parameter covariance; of the points for the
 model-free interpolant) inflate ||P2 g''||^2 by sum_i (1 - h_ii) var(g''_i) in expectation
@@ -150,14 +152,20 @@ class ResolvingPower:
         rho = self.resolution_fraction
         if self.none_resolved:
             return f"no kernel width is resolved (dw_2 > {rho:g} w everywhere)"
+        top = self.widths_w_nm[-1] if self.all_resolved else self.limit_w_nm
+        gaps = self.widths_w_nm[(~self.resolved) & (self.widths_w_nm < top)]
+        extra = ""
+        if gaps.size:
+            shown = ", ".join(f"{x:.4g}" for x in gaps[:6]) + (", ..." if gaps.size > 6 else "")
+            extra = f"; below it {gaps.size} width(s) not resolved: w = {shown} nm"
         if self.all_resolved:
             return (
-                f"all widths resolved up to the widest, w = {self.widths_w_nm[-1]:.3g} nm "
-                f"(dw_2 <= {rho:g} w)"
+                f"resolved up to the widest width, w = {self.widths_w_nm[-1]:.3g} nm "
+                f"(dw_2 <= {rho:g} w){extra}"
             )
         return (
             f"pores wider than w = {self.limit_w_nm:.3g} nm (H = {self.limit_H_nm:.3g} nm) "
-            f"are not resolved (dw_2 > {rho:g} w)"
+            f"are not resolved (dw_2 > {rho:g} w){extra}"
         )
 
 
@@ -166,25 +174,74 @@ def _label(kernel) -> str:
     return str(path) if path is not None else f"kernel {kernel.name!r}"
 
 
-def second_derivative(k: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """d2K/dw2 along axis 1 (three-point formula inside, neighbour's value at the ends) and
-    the coefficients (c-, c0, c+) of the formula at each width, shape (3, W), for propagating
-    errors."""
+#: Half-width of the window of widths for the kernel's curvature d2K/dw2 where the
+#: three-point formula is noise (below), as a fraction of w: the pair criterion asks for K''
+#: on the scale of the pair's half-separation (resolved: at most 0.25 w), while on a dense or
+#: uneven width axis (0.002 nm at a pore's opening, two refined widths 0.003 nm apart) the
+#: three-point formula's variance, which grows as h^-4, exceeds the curvature itself.
+DERIVATIVE_WINDOW = 0.1
+
+
+def second_derivative(
+    k: np.ndarray, w: np.ndarray, window: float = 0.0
+) -> tuple[np.ndarray, np.ndarray]:
+    """d2K/dw2 along axis 1 and the (W, W) matrix C of its linear weights (d2 = k @ C.T), for
+    propagating errors. At each interior width: twice the quadratic coefficient of the
+    least-squares quadratic in w through the widths within ``window`` x w of it and at least
+    its two neighbours (window 0: the three-point formula); at the two end widths the value
+    of the nearest interior width."""
     w = np.asarray(w, dtype=float)
     n = w.size
     out = np.zeros_like(k)
-    coef = np.zeros((3, n))
+    weights = np.zeros((n, n))
     if n < 3:
-        return out, coef
-    hm, hp = w[1:-1] - w[:-2], w[2:] - w[1:-1]
-    cm = 2.0 / (hm * (hm + hp))
-    cp = 2.0 / (hp * (hm + hp))
-    c0 = -(cm + cp)
-    coef[:, 1:-1] = np.stack([cm, c0, cp])
-    coef[:, 0], coef[:, -1] = coef[:, 1], coef[:, -2]
-    out[:, 1:-1] = cm * k[:, :-2] + c0 * k[:, 1:-1] + cp * k[:, 2:]
-    out[:, 0], out[:, -1] = out[:, 1], out[:, -2]
-    return out, coef
+        return out, weights
+    for j in range(1, n - 1):
+        idx = np.flatnonzero(np.abs(w - w[j]) <= window * abs(w[j]))
+        idx = np.union1d(idx, [j - 1, j, j + 1])
+        x = w[idx] - w[j]
+        design = np.stack([np.ones_like(x), x, x * x], axis=1)
+        weights[j, idx] = 2.0 * np.linalg.pinv(design)[2]
+    weights[0], weights[-1] = weights[1], weights[-2]
+    out = k @ weights.T
+    return out, weights
+
+
+def second_derivative_variance(weights: np.ndarray, k_variance: np.ndarray) -> np.ndarray:
+    """The variance of :func:`second_derivative` from independent errors of the kernel's
+    columns (variance k_variance, shape (P, W)): sum_i C_ji^2 var K_i."""
+    return k_variance @ (weights.T**2)
+
+
+#: The three-point curvature is replaced at widths where the kernel's own noise makes up at
+#: least this share of its part orthogonal to K and K' (what the pair criterion uses)
+NOISY_CURVATURE_SHARE = 0.5
+
+
+def curvature(
+    k: np.ndarray,
+    w: np.ndarray,
+    d1: np.ndarray,
+    k_variance: np.ndarray | None,
+    sigma: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """d2K/dw2 and its variance from the kernel's own errors (None without them): the
+    three-point formula, or, at a width where the kernel's noise makes up at least
+    NOISY_CURVATURE_SHARE of its part orthogonal to K and K' (:func:`resolution_from_matrix`'s
+    noise share, against the experiment's noise sigma), the least-squares quadratic over
+    DERIVATIVE_WINDOW x w."""
+    d3, c3 = second_derivative(k, w)
+    if k_variance is None:
+        return d3, None
+    v3 = second_derivative_variance(c3, k_variance)
+    s = np.where(sigma > 0, sigma, 1e-300)
+    share = resolution_from_matrix(k, d1, d3, s, 1.0, v3)["noise_share"]
+    noisy = share >= NOISY_CURVATURE_SHARE
+    if not np.any(noisy):
+        return d3, v3
+    dw, cw = second_derivative(k, w, DERIVATIVE_WINDOW)
+    vw = second_derivative_variance(cw, k_variance)
+    return np.where(noisy, dw, d3), np.where(noisy, vw, v3)
 
 
 def resolution_from_matrix(
@@ -360,18 +417,11 @@ def resolving_power(
     if not np.all(np.isfinite(k)):
         raise InputError(f"{_label(kernel)}: the kernel is not finite on the requested pressures")
     d1 = np.gradient(k, w, axis=1, edge_order=2)
-    d2, coef = second_derivative(k, w)
-    var2 = None
+    sigma = noise.sigma(k)
+    sk2 = None
     if correct_kernel_noise:
         sk2 = (kernel_relative_errors(kernel, t, cols, p) * k) ** 2
-        var2 = np.zeros_like(k)
-        var2[:, 1:-1] = (
-            coef[0, 1:-1] ** 2 * sk2[:, :-2]
-            + coef[1, 1:-1] ** 2 * sk2[:, 1:-1]
-            + coef[2, 1:-1] ** 2 * sk2[:, 2:]
-        )
-        var2[:, 0], var2[:, -1] = var2[:, 1], var2[:, -2]
-    sigma = noise.sigma(k)
+    d2, var2 = curvature(k, w, d1, sk2, sigma)
     out = resolution_from_matrix(k, d1, d2, sigma, chi2_threshold, var2)
     pair = extrapolate_ends(w, out["pair"])
     ratio = pair / w
@@ -420,5 +470,7 @@ __all__ = [
     "kernel_relative_errors",
     "resolution_from_matrix",
     "resolving_power",
+    "curvature",
     "second_derivative",
+    "second_derivative_variance",
 ]
