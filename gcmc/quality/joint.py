@@ -587,10 +587,14 @@ class JointResolution:
 
     @property
     def gain(self) -> np.ndarray:
-        """Per width, min_m dw_2,m / dw_2,set (1: no gain; NaN where the set sees nothing)."""
+        """Per width, min_m dw_2,m / dw_2,set (1: no gain; NaN where the set sees nothing, and
+        at the grid's two end widths, where every dw_2 is extrapolated, not measured)."""
         with np.errstate(divide="ignore", invalid="ignore"):
             g = self.best_member_pair_nm / self.set.pair_half_separation_nm
-        return np.where(np.isfinite(self.set.pair_half_separation_nm), g, np.nan)
+        g = np.where(np.isfinite(self.set.pair_half_separation_nm), g, np.nan)
+        if g.size >= 3:
+            g[0] = g[-1] = np.nan
+        return g
 
     @property
     def only_set(self) -> np.ndarray:
