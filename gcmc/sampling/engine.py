@@ -290,6 +290,37 @@ def remove_molecule(i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, z
 
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
+def displacement_tail(b0, b1, zbin_n, tail_table, nbins):
+    """Change of the slab tail when one molecule moves from z bin b0 to b1 (b0 != b1): its
+    sum over the other molecules' bins at the new place minus the old, less its own bin."""
+    db = b1 - b0
+    if db < 0:
+        db = -db
+    return (
+        slab_tail_sum(b1, zbin_n, tail_table, nbins)
+        - slab_tail_sum(b0, zbin_n, tail_table, nbins)
+        - (tail_table[db] - tail_table[0])
+    )
+
+
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
+def relocate_molecule(
+    i, c, s, c1, x1, y1, z1, b0, b1, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n
+):
+    """Apply an accepted displacement of molecule i (cell c, slot s) to (x1, y1, z1) in cell c1,
+    z bin b0 -> b1."""
+    if c1 == c:
+        cell_xyz[c, 0, s] = x1
+        cell_xyz[c, 1, s] = y1
+        cell_xyz[c, 2, s] = z1
+        zbin_n[b0] -= 1
+        zbin_n[b1] += 1
+    else:
+        remove_molecule(i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n)
+        add_molecule(x1, y1, z1, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n)
+
+
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def _wrap(v, length):
     if v >= length:
         v -= length
@@ -394,14 +425,7 @@ def run_moves(
                     b0 = zbin_of(z0, fp, ip)
                     b1 = zbin_of(z1, fp, ip)
                     if slit and ip[I_SLAB] == 1 and b0 != b1:
-                        db = b1 - b0
-                        if db < 0:
-                            db = -db
-                        dtail = (
-                            slab_tail_sum(b1, zbin_n, tail_table, nbins)
-                            - slab_tail_sum(b0, zbin_n, tail_table, nbins)
-                            - (tail_table[db] - tail_table[0])
-                        )
+                        dtail = displacement_tail(b0, b1, zbin_n, tail_table, nbins)
                     dff = uff1 - uff0 + dtail
                     dsf = usf1 - usf0
                     du = dff + dsf
@@ -409,29 +433,25 @@ def run_moves(
                         counters[C_DISP_ACC] += 1
                         energy[E_FF] += dff
                         energy[E_SF] += dsf
-                        if c1 == c:
-                            cell_xyz[c, 0, s] = x1
-                            cell_xyz[c, 1, s] = y1
-                            cell_xyz[c, 2, s] = z1
-                            zbin_n[b0] -= 1
-                            zbin_n[b1] += 1
-                        else:
-                            remove_molecule(
-                                i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n
-                            )
-                            add_molecule(
-                                x1,
-                                y1,
-                                z1,
-                                ip,
-                                fp,
-                                cell_xyz,
-                                cell_n,
-                                cell_pid,
-                                pid_cell,
-                                pid_slot,
-                                zbin_n,
-                            )
+                        relocate_molecule(
+                            i,
+                            c,
+                            s,
+                            c1,
+                            x1,
+                            y1,
+                            z1,
+                            b0,
+                            b1,
+                            ip,
+                            fp,
+                            cell_xyz,
+                            cell_n,
+                            cell_pid,
+                            pid_cell,
+                            pid_slot,
+                            zbin_n,
+                        )
         elif uniform(rng) < 0.5:
             # ---- insertion with k trial positions
             counters[C_INS_TRY] += 1

@@ -97,7 +97,6 @@ from gcmc.sampling.engine import (
     insertion_tail,
     pair_energy,
     remove_molecule,
-    slab_tail_sum,
     trial_energy,
     wall_energy,
     zbin_of,
@@ -370,14 +369,7 @@ def run_fractional_moves(
                     b0 = zbin_of(z0, fp, ip)
                     b1 = zbin_of(z1, fp, ip)
                     if slab and b0 != b1:
-                        db = b1 - b0
-                        if db < 0:
-                            db = -db
-                        dtail = (
-                            slab_tail_sum(b1, zbin_n, tail_table, nbins)
-                            - slab_tail_sum(b0, zbin_n, tail_table, nbins)
-                            - (tail_table[db] - tail_table[0])
-                        )
+                        dtail = E.displacement_tail(b0, b1, zbin_n, tail_table, nbins)
                         bf = zbin_of(zf, fp, ip)
                         d1 = b1 - bf
                         d0 = b0 - bf
@@ -395,29 +387,25 @@ def run_fractional_moves(
                         energy[E.E_FF] += dff
                         energy[E.E_SF] += dsf
                         fstate[S_UFF] += dfr
-                        if c1 == c:
-                            cell_xyz[c, 0, s] = x1
-                            cell_xyz[c, 1, s] = y1
-                            cell_xyz[c, 2, s] = z1
-                            zbin_n[b0] -= 1
-                            zbin_n[b1] += 1
-                        else:
-                            remove_molecule(
-                                i, ip, fp, cell_xyz, cell_n, cell_pid, pid_cell, pid_slot, zbin_n
-                            )
-                            add_molecule(
-                                x1,
-                                y1,
-                                z1,
-                                ip,
-                                fp,
-                                cell_xyz,
-                                cell_n,
-                                cell_pid,
-                                pid_cell,
-                                pid_slot,
-                                zbin_n,
-                            )
+                        E.relocate_molecule(
+                            i,
+                            c,
+                            s,
+                            c1,
+                            x1,
+                            y1,
+                            z1,
+                            b0,
+                            b1,
+                            ip,
+                            fp,
+                            cell_xyz,
+                            cell_n,
+                            cell_pid,
+                            pid_cell,
+                            pid_slot,
+                            zbin_n,
+                        )
         elif r < p_frac:
             # ---- displacement of the fractional molecule
             counters[K_FD_TRY] += 1
