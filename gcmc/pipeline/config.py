@@ -472,7 +472,8 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
 
     sf = _Fields(f"{p}: sampling", data.get("sampling", {}))
     d = SamplingSettings()
-    # target_rel_stderr = "target": production aims at the [target]'s point-error rule
+    # target_rel_stderr = "target": production aims at the [target]'s point-error rule (set
+    # below, once the [target] is read); the number parsed here is then the default, 0
     aim_at_target = sf.table.get("target_rel_stderr") == "target"
     if aim_at_target:
         sf.table = {k: v for k, v in sf.table.items() if k != "target_rel_stderr"}
@@ -485,11 +486,7 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         biased_trials=sf.integer("biased_trials", d.biased_trials, 2),
         bias_threshold=sf.number("bias_threshold", d.bias_threshold),  # type: ignore[arg-type]
         replicas=sf.integer("replicas", d.replicas, 1),
-        target_rel_stderr=(
-            0.0
-            if aim_at_target
-            else sf.number("target_rel_stderr", d.target_rel_stderr, positive=False)
-        ),
+        target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
         max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),
         replica_exchange=_replica_exchange(sf, d.replica_exchange),
     )
