@@ -208,14 +208,15 @@ def certificate_move_budget(
         64,
         0.5,
     )
-    us = max(per_move, 1.0) * US_PER_COST_UNIT
-    production, spent = cs.production_moves, 0.0
-    while True:
-        spent += attempt_moves(model, cs, production) * us * 1e-6
-        nxt = attempt_moves(model, cs, 2 * production) * us * 1e-6
-        if spent + nxt > budget_cpu_s:
-            return production
+    seconds_per_move = max(per_move, 1.0) * US_PER_COST_UNIT * 1e-6
+    production = cs.production_moves
+    spent = attempt_moves(model, cs, production) * seconds_per_move
+    nxt = attempt_moves(model, cs, 2 * production) * seconds_per_move
+    while spent + nxt <= budget_cpu_s:
         production *= 2
+        spent += nxt
+        nxt = attempt_moves(model, cs, 2 * production) * seconds_per_move
+    return production
 
 
 def certify_settings(
