@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import shutil
 import tomllib
 from pathlib import Path
 from types import SimpleNamespace
@@ -188,7 +189,10 @@ def lattice_kernel():
 
 
 def fake_plan(tmp_path: Path, **rows):
-    cfg = parse(config_text(**rows))
+    # the synthetic kernel's temperature must lie below the path's hot temperature (the
+    # planner plans no path at or above it)
+    cfg = parse(config_text(hot_temperature_K=2000.0, **rows))
+    assert small().temperatures_K[0] < cfg.hot_temperature_K
     return SimpleNamespace(config=cfg, task_dir=tmp_path / "tasks")
 
 
@@ -236,6 +240,10 @@ def test_the_planner_plans_anchors_only_for_pores_with_a_loop(tmp_path):
     tag = plan.config.equilibrium_tag
     assert [t.key for t in tasks] == [f"t000_w{j:03d}_eq{tag}"]
     assert tasks[0].spawn_key() == (0, j, 2_000_000)  # its own random stream
+    # at or above the path's hot temperature no path is planned (298.15 K > 1.1 T_c here)
+    hot = SimpleNamespace(config=parse(config_text(isotherm_states=24)), task_dir=tmp_path)
+    assert hot.config.hot_temperature_K < d.temperatures_K[0]
+    assert an.plan_anchor_tasks(hot, d, grid_of(d)) == []
     # no desorption branch (or no loop anywhere): nothing to anchor
     assert an.plan_anchor_tasks(plan, small(), grid_of(d)) == []
     flat = dataclasses.replace(
@@ -318,13 +326,23 @@ def _anchor_keys(cfg_path: Path) -> list[str]:
     return sorted(p.stem for p in tasks)
 
 
-def test_a_build_with_a_loop_resumes_bit_identical(tmp_path):
-    # uninterrupted reference, 1 worker
-    ref_cfg = copy_config(tmp_path / "ref", CONFIG)
-    res = run_build(ref_cfg, "--workers", "1")
-    check_ok(res)
-    assert "equilibrium" in res.stdout and "anchor paths: 1 task(s), 14 points" in res.stdout
-    ref = open_kernel(output_dir(ref_cfg) / f"{NAME}.v1.h5")
+_REFERENCE: dict[str, object] = {}
+
+
+def reference_build(factory: pytest.TempPathFactory):
+    """The uninterrupted 1-worker build of the test config (once per session): (kernel,
+    config path, its stdout)."""
+    if "ref" not in _REFERENCE:
+        cfg = copy_config(factory.mktemp("eq-reference"), CONFIG)
+        res = run_build(cfg, "--workers", "1")
+        check_ok(res)
+        _REFERENCE["ref"] = (open_kernel(output_dir(cfg) / f"{NAME}.v1.h5"), cfg, res.stdout)
+    return _REFERENCE["ref"]
+
+
+def test_a_build_with_a_loop_resumes_bit_identical(tmp_path, tmp_path_factory):
+    ref, ref_cfg, stdout = reference_build(tmp_path_factory)
+    assert "equilibrium" in stdout and "anchor paths: 1 task(s), 14 points" in stdout
     e = ref.data.equilibrium
     # the 3 nm slit has a loop inside the grid (the precondition of this test) and got the
     # only anchor path; the blocked slit none
@@ -332,7 +350,7 @@ def test_a_build_with_a_loop_resumes_bit_identical(tmp_path):
     keys = _anchor_keys(ref_cfg)
     assert len(keys) == 1 and keys[0].startswith("t000_w001_eq")
     assert e.has_transition[0, 1], e.reason[0, 1]
-    # the path's states: finite, dense at the end, and the anchor has a finite error
+    # the path's states: finite, and the anchor has a finite error
     assert np.all(np.isfinite(e.path_energy_K_per_nm3[0, 1]))
     assert np.isfinite(e.anchor_stderr[0, 1]) and e.anchor_stderr[0, 1] > 0
 
@@ -361,4 +379,18 @@ def test_a_build_with_a_loop_resumes_bit_identical(tmp_path):
     res = run_build(cfg, "--workers", "1")
     check_ok(res)
     assert "(2 task(s) reused from disk)" in res.stdout, res.stdout
+    assert_same_kernel(ref.data, open_kernel(output_dir(cfg) / f"{NAME}.v1.h5").data)
+
+
+@pytest.mark.slow
+@pytest.mark.mpi
+@pytest.mark.skipif(shutil.which("mpiexec") is None, reason="mpiexec not found on PATH")
+def test_an_mpi_build_gives_the_same_equilibrium_branch(tmp_path, tmp_path_factory):
+    # the anchor round goes through the same queue under MPI (2 ranks): the same kernel
+    pytest.importorskip("mpi4py")
+    ref, _, _ = reference_build(tmp_path_factory)
+    cfg = copy_config(tmp_path / "mpi", CONFIG)
+    res = run_build(cfg, mpi_ranks=2)
+    check_ok(res)
+    assert "2 MPI ranks" in res.stdout, res.stdout
     assert_same_kernel(ref.data, open_kernel(output_dir(cfg) / f"{NAME}.v1.h5").data)

@@ -186,10 +186,16 @@ def loop_pores(data: KernelData) -> list[tuple[int, int]]:
 
 
 def plan_anchor_tasks(plan: BuildPlan, data: KernelData, layout: Layout) -> list[Task]:
-    """One anchor task per pore with a loop (:func:`loop_pores`), keyed by its ladder."""
+    """One anchor task per pore with a loop (:func:`loop_pores`) below the path's hot
+    temperature, keyed by its ladder."""
     cfg = plan.config
     tasks = []
+    temps = np.asarray(data.temperatures_K, float)
     for t, j in loop_pores(data):
+        if not temps[t] < cfg.hot_temperature_K:
+            # at or above the path's supercritical temperature no pore has a loop (what the
+            # branches show there is noise); no path exists from above to it
+            continue
         lad = layout.ladders[t][j]
         tasks.append(
             Task(
