@@ -121,6 +121,11 @@ def write_equilibrium(parent: Any, eq: EquilibriumBranch) -> None:
         ds.attrs["description"] = meaning
 
 
+def _text(x: Any) -> str:
+    """A string of an HDF5 string dataset (str objects from asstr, or bytes)."""
+    return x.decode("utf-8") if isinstance(x, bytes) else str(x)
+
+
 def read_equilibrium(f: Any, values: dict[str, Any] | None = None) -> EquilibriumBranch | None:
     """The EquilibriumBranch of an open kernel file, None when the file has none (files
     before schema 1.1, or built without [equilibrium])."""
@@ -137,13 +142,7 @@ def read_equilibrium(f: Any, values: dict[str, Any] | None = None) -> Equilibriu
         else:
             v = np.array(g[name][()])
         if dtype == "str":
-            v = (
-                np.vectorize(
-                    lambda x: x.decode() if isinstance(x, bytes) else str(x), otypes=[object]
-                )(v).astype(str)
-                if v.size
-                else v.astype(str)
-            )
+            v = np.array([_text(x) for x in v.ravel()], dtype=str).reshape(v.shape)
         elif dtype == "bool":
             v = v.astype(bool)
         else:
