@@ -101,7 +101,7 @@ class Task:
     @property
     def is_single(self) -> bool:
         """Not a pressure ladder: a point rerun or an anchor path (counted apart in progress)."""
-        return self.point >= 0 or self.anchor
+        return self.point >= 0 or bool(self.anchor)
 
     def ladder(self) -> Task:
         """The ladder task this task reruns a point of (itself for a ladder task)."""
