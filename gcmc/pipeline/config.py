@@ -35,7 +35,7 @@ from gcmc.physics.potentials import (
 )
 from gcmc.physics.units import MMOL_PER_CM3_PER_NM3
 from gcmc.quality.target import QualityTarget
-from gcmc.sampling.point import SamplingSettings
+from gcmc.sampling.point import SECOND_REPLICA_STARTS, SamplingSettings
 
 KNOWN_SECTIONS = {
     "kernel",
@@ -211,12 +211,14 @@ class RunConfig:
             "eos": self.eos,
             # the key of replica_exchange stays "exchange" (its name before the rename), so
             # that configs built before keep their hash and their kernels stay up to date
-            # stderr_floor_per_nm3 enters only where set, for the same reason
+            # stderr_floor_per_nm3, target_flags and second_replica enter only where set, for
+            # the same reason
             "sampling": {
                 ("exchange" if k == "replica_exchange" else k): v
                 for k, v in self.sampling.__dict__.items()
                 if not (k == "stderr_floor_per_nm3" and v == 0.0)
                 and not (k == "target_flags" and v is True)
+                and not (k == "second_replica" and v == "over-filled")
             },
             "fit": self.fit.__dict__,
             "seed": self.seed,
@@ -558,6 +560,7 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         biased_trials=sf.integer("biased_trials", d.biased_trials, 2),
         bias_threshold=sf.number("bias_threshold", d.bias_threshold),  # type: ignore[arg-type]
         replicas=sf.integer("replicas", d.replicas, 1),
+        second_replica=sf.string("second_replica", d.second_replica, SECOND_REPLICA_STARTS),
         target_rel_stderr=sf.number("target_rel_stderr", d.target_rel_stderr, positive=False),
         max_production_moves=sf.integer("max_production_moves", d.max_production_moves, 0),
         replica_exchange=_replica_exchange(sf, d.replica_exchange),

@@ -306,7 +306,13 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
         }
     else:
         settings = step_settings(cfg.sampling, task.step)
-        r = simulate_point(model, state, settings, task_seed(cfg, task), start=None).result
+        # a cold start; with second_replica = "branch" (hysteresis kernels) every replica
+        # starts on its branch's side, so that a rerun stays on the metastable branch:
+        # adsorption from the empty pore, desorption over-filled
+        above = settings.second_replica == "branch" and BRANCHES[task.branch] == "desorption"
+        r = simulate_point(
+            model, state, settings, task_seed(cfg, task), start=None, from_above=above
+        ).result
     seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
     arrays: dict[str, np.ndarray] = {}
     for name in POINT_FIELDS:

@@ -43,6 +43,10 @@ class ThermoState:
         return activity_per_nm3(self.fugacity_Pa, self.temperature_K)
 
 
+#: where a point's second replica may start (SamplingSettings.second_replica)
+SECOND_REPLICA_STARTS = ("over-filled", "branch")
+
+
 @dataclass(frozen=True)
 class SamplingSettings:
     """How hard to sample one point."""
@@ -68,6 +72,12 @@ class SamplingSettings:
     #: whose second replica started below the first one's mean (by more than agreement_rel)
     #: is flagged not_bracketed
     overfill_factor: float = 20.0
+    #: where the second replica starts: "over-filled" (the bracket above) or "branch" (the
+    #: first replica's start, its own random stream). A hysteresis kernel's ladders need
+    #: "branch": inside a loop the over-filled replica condenses and stays on the other
+    #: branch, so the point's replicas disagree and its mean lies between the branches
+    #: (replicas from one start test reproducibility along the metastable branch instead)
+    second_replica: str = "over-filled"
     #: stop production when the relative standard error of N reaches this (0: no precision
     #: target)
     target_rel_stderr: float = 0.0
@@ -106,6 +116,11 @@ class SamplingSettings:
             v = getattr(self, name)
             if not isinstance(v, int) or v < (1 if name != "equilibration_moves" else 0):
                 raise InputError(f"sampling.{name}: must be a positive integer, got {v!r}")
+        if self.second_replica not in SECOND_REPLICA_STARTS:
+            raise InputError(
+                f"sampling.second_replica: one of {', '.join(SECOND_REPLICA_STARTS)}, got "
+                f"{self.second_replica!r}"
+            )
         if self.production_moves < 20 * self.sample_every:
             raise InputError("sampling.production_moves: must be at least 20 x sample_every")
         if not 0.0 <= self.displacement_fraction < 1.0:
@@ -612,9 +627,12 @@ def simulate_point(
     start: np.ndarray | None = None,
     max_displacement_nm: float | None = None,
     progress: Progress | None = None,
+    from_above: bool = False,
 ) -> PointOutcome:
     """Simulate one state point. ``start`` is an initial configuration (e.g. the previous
-    point of a pressure ladder); the result is a deterministic function of the arguments."""
+    point of a pressure ladder); ``from_above``: every replica starts over-filled (a cold
+    start on the condensed side, e.g. a desorption point rerun without its ladder); the
+    result is a deterministic function of the arguments."""
     if model.geometry == SLIT and pore_limit(model, state.temperature_K).blocked:
         return _blocked_result(model, state)
     ss = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
@@ -626,7 +644,7 @@ def simulate_point(
             settings,
             seed_state(streams[r]),
             start,
-            overfill=(r == 1),
+            overfill=from_above or (r == 1 and settings.second_replica == "over-filled"),
             max_disp=max_displacement_nm,
             progress=progress,
         )
