@@ -490,25 +490,29 @@ def _stencil(g: tuple[float, float, float], rc: float) -> np.ndarray:
     return np.array(out, dtype=np.int64).reshape(-1, 3)
 
 
-class CavitySampler:
-    """A Box with the cavity grid: cavity-biased grand canonical moves at (T, z)."""
+class CavityBox(Box):
+    """A :class:`gcmc.sampling.box.Box` whose moves are the cavity-biased ones: the same
+    constructor (plus ``cavity``, the grid's options) and the same :meth:`run`, so that any
+    driver of Boxes (e.g. the tempering chains of gcmc.sampling.tempering, through their
+    ``box_class``) runs them. The grid's excluded wall cells are fixed at construction, at
+    ``temperature_k`` (module docstring: any fixed choice keeps the moves exact)."""
 
     def __init__(
         self,
         model: PoreModel,
         temperature_k: float,
         activity_nm3: float,
-        options: CavityOptions | None = None,
-        engine_options: EngineOptions | None = None,
+        options: EngineOptions | None = None,
         rng_state: np.ndarray | None = None,
         max_displacement_nm: float | None = None,
+        cavity: CavityOptions | None = None,
     ):
-        self.options = options or CavityOptions()
-        self.options.validate()
-        self.box = Box(
-            model, temperature_k, activity_nm3, engine_options, rng_state, max_displacement_nm
+        self.cavity_options = cavity or CavityOptions()
+        self.cavity_options.validate()
+        super().__init__(
+            model, temperature_k, activity_nm3, options, rng_state, max_displacement_nm
         )
-        o = self.options
+        o = self.cavity_options
         sig = model.probe.sigma_nm
         lengths = model.box_lengths_nm
         counts = [max(1, round(length / (o.grid_sigma * sig))) for length in lengths]
@@ -559,11 +563,6 @@ class CavitySampler:
 
     # -- state --------------------------------------------------------------------------
     @property
-    def n_molecules(self) -> int:
-        """Molecules in the box now."""
-        return self.box.n_molecules
-
-    @property
     def n_cavities(self) -> int:
         """Cavity cells now."""
         return int(self.gi[J_NCAV])
@@ -580,7 +579,7 @@ class CavitySampler:
 
     def rebuild_grid(self) -> None:
         """occ, the cavity list and n_cav from the configuration (after loading one)."""
-        b = self.box
+        b = self
         build_occupancy(
             b.ip, b.cell_xyz, b.pid_cell, b.pid_slot, self.gp, self.gi, self.stencil,
             self.allowed, self.occ, self.cav_list, self.cav_pos,
@@ -589,7 +588,7 @@ class CavitySampler:
     def load_positions(self, positions: np.ndarray) -> int:
         """Replace the configuration (overlaps dropped, energy and grid recomputed); returns
         the number of molecules loaded."""
-        n = self.box.load_positions(positions)
+        n = super().load_positions(positions)
         self.rebuild_grid()
         return n
 
@@ -611,8 +610,8 @@ class CavitySampler:
             out_usf = np.zeros(1)
             sample_every = 0
         if profile is None:
-            profile = np.zeros(self.box.n_bins)
-        b = self.box
+            profile = np.zeros(self.n_bins)
+        b = self
         return run_cavity_moves(
             int(n_moves), int(sample_every), b.fp, b.ip, b.cell_xyz, b.cell_n, b.cell_pid,
             b.pid_cell, b.pid_slot, b.nbr, b.nbr_n, b.zbin_n, b.tail_table, b.rng, b.energy,
@@ -625,7 +624,7 @@ class CavitySampler:
         towards 40 % acceptance (gcmc.sampling.point.adapted_step)."""
         from gcmc.sampling.point import adapted_step
 
-        b = self.box
+        b = self
         sig = b.model.probe.sigma_nm
         lmax = 0.5 * min(b.model.box_lengths_nm)
         per = max(1, int(n_moves) // max(1, int(chunks)))
@@ -641,19 +640,35 @@ class CavitySampler:
                 b.max_displacement_nm = adapted_step(b.max_displacement_nm, a, sig, lmax)
             done += step
 
-    def acceptance(self) -> dict[str, float]:
-        """Accepted fraction of displacements, insertions and deletions."""
-        return self.box.acceptance()
-
-    @property
-    def exchanges(self) -> int:
-        """Accepted insertions + deletions since the counters were reset."""
-        return self.box.exchanges
-
     def reset_counters(self) -> None:
         """Zero the move counters (the engine's and the cavity rule's)."""
-        self.box.reset_counters()
+        super().reset_counters()
         self.xcounters[:] = 0
+
+    @property
+    def box(self) -> CavityBox:
+        """The box itself (the sampler is a Box)."""
+        return self
+
+
+class CavitySampler(CavityBox):
+    """A :class:`CavityBox` built with the cavity options first: cavity-biased grand
+    canonical moves at (T, z)."""
+
+    def __init__(
+        self,
+        model: PoreModel,
+        temperature_k: float,
+        activity_nm3: float,
+        options: CavityOptions | None = None,
+        engine_options: EngineOptions | None = None,
+        rng_state: np.ndarray | None = None,
+        max_displacement_nm: float | None = None,
+    ):
+        super().__init__(
+            model, temperature_k, activity_nm3, engine_options, rng_state, max_displacement_nm,
+            cavity=options,
+        )  # fmt: skip
 
 
 @dataclass
@@ -693,9 +708,9 @@ def sample_cavity(
         s.load_positions(start)
     eq = int(equilibration_moves)
     if overfill_factor > 0.0 and eq > 0:
-        s.box.activity_nm3 = activity_nm3 * overfill_factor
+        s.activity_nm3 = activity_nm3 * overfill_factor
         s.equilibrate(eq // 2)
-        s.box.activity_nm3 = activity_nm3
+        s.activity_nm3 = activity_nm3
         s.equilibrate(eq - eq // 2)
     elif eq > 0:
         s.equilibrate(eq)
@@ -704,7 +719,7 @@ def sample_cavity(
     n = np.zeros(ns, dtype=np.int64)
     uff = np.zeros(ns)
     usf = np.zeros(ns)
-    prof = np.zeros(s.box.n_bins)
+    prof = np.zeros(s.n_bins)
     t = time.process_time()
     w = s.run(ns * int(sample_every), int(sample_every), n, uff, usf, 0, prof)
     cpu = time.process_time() - t
