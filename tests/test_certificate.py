@@ -141,6 +141,26 @@ def test_short_certification_runs_end_to_end_and_is_honest(engine):
     assert not C.is_dense_subcritical(model, 160.0, cert.density_per_nm3)  # above T_c
 
 
+def test_near_critical_points_have_no_certified_step():
+    """The hot rungs need room below HOT_MAX_REDUCED_T x T_c: a dense point closer to T_c than
+    0.9 / 1.1 T_c is not "dense subcritical" (no certified step), and asking the certificate
+    for one is a one-line input error, raised before anything is simulated. T_c of argon
+    150.687 K (Tegeler, Span & Wagner 1999, via CoolProp)."""
+    from gcmc.errors import InputError
+
+    model, _, eos = _argon_state(87.3, 0.1)
+    tc = model.probe.critical_temperature_K
+    assert tc == pytest.approx(150.687, abs=0.01)
+    dense = 0.8 / model.probe.sigma_nm**3
+    edge = C.HOT_MAX_REDUCED_T / C.MIN_HOT_FACTOR * tc
+    assert C.is_dense_subcritical(model, 0.99 * edge, dense)
+    assert not C.is_dense_subcritical(model, 1.01 * edge, dense)
+    assert not C.is_dense_subcritical(model, 0.99 * edge, 0.3 / model.probe.sigma_nm**3)
+    near_model, near_state, _ = _argon_state(0.94 * tc, 0.5)
+    with pytest.raises(InputError, match="no room for hot rungs"):
+        C.certify_filled_point(near_model, near_state, 1, C.CertifySettings(), eos)
+
+
 def test_dense_point_takes_the_certified_path(engine):
     from gcmc.cli import main
 

@@ -104,6 +104,7 @@ def test_sample_of_schema_1_0_reads_as_before() -> None:
     assert k.info == expected["info"]
     # a field added since (the optional heat kernel) reads as absent
     assert meta.pop("/heat") == {"type": "NoneType", "value": None}
+    assert meta.pop("/equilibrium") == {"type": "NoneType", "value": None}  # since 1.1
     assert json.loads(json.dumps(meta)) == expected["values"]
     with np.load(DATA / "sample-schema-1.0.expected.npz") as z:
         assert sorted(z.files) == sorted(arrays)
@@ -127,7 +128,7 @@ def test_every_row_written_is_in_the_table_and_back(tmp_path: Path) -> None:
     rows = _h5_rows(SAMPLE)
     table = {e.path for e in schema.SCHEMA}
     assert rows - table == set()
-    optional_groups = {"isosteric_heat"}  # absent from the sample (no heat kernel)
+    optional_groups = {"isosteric_heat", "equilibrium"}  # absent from the sample
     expected = {p for p in table if p.split("/")[0].split("@")[0] not in optional_groups}
     assert expected - rows - {"@" + schema.CHECKSUM_ATTR} == set()
 
@@ -159,6 +160,7 @@ def test_point_fields_come_from_the_table() -> None:
         "fits",
         "extra",
         "heat",
+        "equilibrium",
     } == {f.name for f in dataclasses.fields(KernelData)}
 
 

@@ -162,6 +162,16 @@ def _summary(result) -> None:
 
         for i, line in enumerate(refinement_lines(result.refinement)):
             rows.append(("refinement" if i == 0 else "", line))
+    if result.equilibrium is not None and data.equilibrium is not None:
+        eq, c = data.equilibrium, result.equilibrium
+        rows.append(
+            (
+                "equilibrium",
+                f"{int(eq.has_loop.sum())} pore(s) with a loop, {int(eq.has_transition.sum())} "
+                f"transition(s); anchor paths: {c['tasks']} task(s), {c['points']} points, "
+                f"{c['cpu_seconds']:.1f} CPU-s",
+            )
+        )
     rows.append(("wall time", f"{seconds:.1f} s"))
     width = max(len(r[0]) for r in rows)
     print("\n".join(f"  {k:<{width}}  {v}" for k, v in rows))

@@ -155,6 +155,15 @@ def equilibrium_line(d: KernelData) -> str:
     loops, and why no transition is given."""
     from gcmc.kernel import equilibrium as eq
 
+    if d.equilibrium is not None:  # stored (schema 1.1): the build's anchored transitions
+        st = d.equilibrium
+        acc = np.asarray(d.accessible, bool)
+        n_loop, n_eq = int(st.has_loop[acc].sum()), int(st.has_transition[acc].sum())
+        return (
+            f"hysteresis loop in {n_loop}/{int(acc.sum())} accessible pores; equilibrium "
+            f"transition in {n_eq} (anchored along a reversible path through "
+            f"{st.hot_temperature_K:.4g} K)"
+        )
     found = eq.kernel_transitions(d)
     if not found:
         return ""
@@ -177,6 +186,30 @@ def equilibrium_line(d: KernelData) -> str:
     if reasons:
         text += "; none: " + "; ".join(f"{v} {k}" for k, v in reasons.most_common())
     return text
+
+
+def transition_lines(d: KernelData) -> list[str]:
+    """One `gcmc show` line per hysteresis loop of a kernel with a stored equilibrium branch
+    (schema 1.1): T, H, the loop's bracket and the transition p_eq with its uncertainty (or
+    why there is none). [] without the stored branch."""
+    eq = d.equilibrium
+    if eq is None:
+        return []
+    p0 = np.asarray(d.saturation_pressures_Pa, dtype=float)
+    out = []
+    for t, j in zip(*np.nonzero(np.asarray(eq.has_loop, bool)), strict=True):
+        lo, hi = (float(x) for x in eq.loop_pressure_range_Pa[t, j])
+        head = (
+            f"T = {d.temperatures_K[t]:g} K, H = {d.widths_H_nm[j]:g} nm: loop {lo:.4g}-{hi:.4g} Pa"
+        )
+        if not eq.has_transition[t, j]:
+            out.append(f"{head}; no transition: {eq.reason[t, j]}")
+            continue
+        pe, du = float(eq.pressure_Pa[t, j]), float(eq.pressure_uncertainty_Pa[t, j])
+        rel = f" (p/p0 {pe / p0[t]:.3g})" if np.isfinite(p0[t]) else ""
+        extra = ", extrapolated" if eq.extrapolated[t, j] else ""
+        out.append(f"{head}; transition p_eq = {pe:.4g} +- {du:.2g} Pa{rel}{extra}")
+    return out
 
 
 def summary(kernel: Kernel) -> str:
@@ -236,6 +269,8 @@ def summary(kernel: Kernel) -> str:
     eq_line = equilibrium_line(d)
     if eq_line:
         add("equilibrium", eq_line)
+    for line in transition_lines(d):
+        add("", line)
     acc = np.asarray(d.accessible, dtype=bool)
     smallest = []
     for t, temp in enumerate(d.temperatures_K):

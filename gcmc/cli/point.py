@@ -144,7 +144,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="point: the point-wise sampler only; certified: certify the point (hyper-parallel "
         "tempering preparations and a box-size check, gcmc.sampling.certificate); auto: the "
         "point-wise sampler, then the certified path when the state is a dense subcritical one "
-        "(slit, T < T_c of the probe, pore density rho sigma^3 > 0.5)",
+        "(slit, T <= 0.82 T_c of the probe, pore density rho sigma^3 > 0.5)",
     )
     m.add_argument(
         "--certify-budget",

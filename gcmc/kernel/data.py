@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 
+from gcmc.kernel.eqbranch import EquilibriumBranch
 from gcmc.kernel.heat import HeatKernel
 from gcmc.kernel.schema import POINT_FIELDS as _POINT_FIELDS
 
@@ -127,3 +128,5 @@ class KernelData:
     extra: dict[str, np.ndarray] = field(default_factory=dict)
     # the isosteric-heat kernel (gcmc.kernel.heat), None when the kernel has none
     heat: HeatKernel | None = None
+    # the equilibrium branch and transitions (gcmc.kernel.eqbranch), None when not computed
+    equilibrium: EquilibriumBranch | None = None

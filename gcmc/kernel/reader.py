@@ -33,6 +33,7 @@ from gcmc.errors import InputError
 from gcmc.kernel import forms as _forms
 from gcmc.kernel import schema as _schema
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.eqbranch import read_equilibrium
 from gcmc.kernel.heat import heat_matrix, read_heat
 from gcmc.kernel.schema import (
     CHECKSUM_ATTR,
@@ -363,7 +364,16 @@ def _read_kernel_data(f: h5py.File, values: dict[str, Any] | None = None) -> Ker
             value = _read(f, e.path)
             fields[e.field] = value.astype(bool) if e.dtype == "bool" else value
     heat = read_heat(f, values)
-    return KernelData(points=points, flags=flags, fits=fits, extra=extra, heat=heat, **fields)
+    equilibrium = read_equilibrium(f, values)
+    return KernelData(
+        points=points,
+        flags=flags,
+        fits=fits,
+        extra=extra,
+        heat=heat,
+        equilibrium=equilibrium,
+        **fields,
+    )
 
 
 def _attr_value(e: _schema.Entry, value: Any) -> Any:
@@ -524,6 +534,38 @@ class Kernel:
         return out
 
     kernel_matrix = evaluate
+
+    # ---- equilibrium branch (schema 1.1, optional) ------------------------------------------
+    @property
+    def has_equilibrium(self) -> bool:
+        """True when the file stores the equilibrium branch (group ``equilibrium``)."""
+        return self.data.equilibrium is not None
+
+    def equilibrium_branch(
+        self, temperature: float | int | np.integer
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The equilibrium density branch at a kernel temperature (index or K): (pressures
+        (P,) Pa, density (W, P) nm^-3, standard error (W, P)), on the simulated grid
+        (adsorption below each pore's f_eq, desorption above; the adsorption branch where a
+        pore has no loop; NaN where a loop has no located transition). InputError when the
+        kernel has none."""
+        eq = self.data.equilibrium
+        if eq is None:
+            raise InputError(f"{self._label}: no equilibrium branch (built without [equilibrium])")
+        t = self.temperature_index(temperature)
+        p = np.asarray(self.data.pressures_Pa[t], float).copy()
+        return p, np.array(eq.density_per_nm3[t], float), np.array(eq.density_per_nm3_stderr[t])
+
+    def equilibrium_transitions(
+        self, temperature: float | int | np.integer
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """(p_eq, its uncertainty) in Pa per width at a kernel temperature (NaN where a pore
+        has no located transition). InputError when the kernel has none."""
+        eq = self.data.equilibrium
+        if eq is None:
+            raise InputError(f"{self._label}: no equilibrium branch (built without [equilibrium])")
+        t = self.temperature_index(temperature)
+        return np.array(eq.pressure_Pa[t], float), np.array(eq.pressure_uncertainty_Pa[t], float)
 
     def isosteric_heat(
         self,

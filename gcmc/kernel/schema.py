@@ -20,8 +20,21 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-#: The schema this package writes: major.minor. Minor versions only add rows.
-SCHEMA_VERSION = "1.0"
+#: The schema this package writes: major.minor. Minor versions only add rows. A file is
+#: labelled with the lowest version whose rows it holds (:func:`file_schema_version`): 1.1
+#: added the optional group ``equilibrium``, so a file without it is still a 1.0 file.
+SCHEMA_VERSION = "1.1"
+#: the first schema version of each optional group added since 1.0
+GROUP_SINCE: dict[str, str] = {"equilibrium": "1.1"}
+
+
+def file_schema_version(groups: set[str] | frozenset[str]) -> str:
+    """The schema version a file with these top-level groups is labelled with: the newest
+    ``since`` among the optional groups it holds, else 1.0."""
+    found = [GROUP_SINCE[g] for g in groups if g in GROUP_SINCE]
+    return max(found, key=lambda v: tuple(int(x) for x in v.split("."))) if found else "1.0"
+
+
 SCHEMA_MAJOR = 1
 FORMAT_NAME = "gcmc-kernel"
 CHECKSUM_ATTR = "checksum_sha256"
@@ -161,6 +174,75 @@ _POINT_MEANINGS = (
     ("seconds", "s", "wall-clock time of the point, all replicas"),
     ("converged", "bool", "no flag that makes a point unconverged (see the flags)"),
 )
+
+#: (name, dtype, dims, units, meaning) of every dataset of the group, in order
+EQUILIBRIUM_DATASETS: tuple[tuple[str, str, str, str, str], ...] = (
+    ("has_loop", "bool", "TW", "bool", "the branches part (a hysteresis loop inside the grid)"),
+    ("has_transition", "bool", "TW", "bool", "an equilibrium transition was located"),
+    ("reason", "str", "TW", "", "why there is no transition ('' when there is one)"),
+    ("fugacity_Pa", "float64", "TW", "Pa", "f_eq: bulk fugacity at the transition"),
+    ("pressure_Pa", "float64", "TW", "Pa", "p_eq: bulk pressure at the transition"),
+    ("ln_f_stderr", "float64", "TW", "1", "statistical standard error of ln f_eq"),
+    ("ln_f_integration_error", "float64", "TW", "1", "integration-error estimate of ln f_eq"),
+    (
+        "pressure_uncertainty_Pa",
+        "float64",
+        "TW",
+        "Pa",
+        "p_eq x sqrt(stat^2 + integration^2 + p(f) interpolation^2)",
+    ),
+    ("extrapolated", "bool", "TW", "bool", "f_eq within one grid interval beyond the overlap"),
+    (
+        "loop_pressure_range_Pa",
+        "float64",
+        "TW2",
+        "Pa",
+        "grid pressures bracketing the loop (below the drop, above the jump)",
+    ),
+    (
+        "density_per_nm3",
+        "float64",
+        "TWP",
+        "nm^-3",
+        "equilibrium branch: adsorption below f_eq, desorption above",
+    ),
+    ("density_per_nm3_stderr", "float64", "TWP", "nm^-3", "standard error of the branch"),
+    (
+        "anchor_beta_omega_per_nm3",
+        "float64",
+        "TW",
+        "nm^-3",
+        "beta Omega/V of the desorption branch's top point, from the path",
+    ),
+    ("anchor_stderr", "float64", "TW", "nm^-3", "statistical standard error of the anchor"),
+    (
+        "anchor_integration_error",
+        "float64",
+        "TW",
+        "nm^-3",
+        "integration-error estimate of the anchor",
+    ),
+    ("path_temperature_K", "float64", "TWS", "K", "temperature of each state of the path"),
+    ("path_ln_z", "float64", "TWS", "1", "ln(z nm^3) of each state, z = f/(k T)"),
+    ("path_density_per_nm3", "float64", "TWS", "nm^-3", "density n of each state"),
+    ("path_density_per_nm3_stderr", "float64", "TWS", "nm^-3", "standard error of n"),
+    (
+        "path_energy_K_per_nm3",
+        "float64",
+        "TWS",
+        "K nm^-3",
+        "u = <U>/(k V), configurational energy per pore volume",
+    ),
+    ("path_energy_K_per_nm3_stderr", "float64", "TWS", "K nm^-3", "standard error of u"),
+    ("path_converged", "bool", "TWS", "bool", "the state's point is converged (no flag)"),
+)
+#: the group's attributes: (name, meaning)
+EQUILIBRIUM_ATTRIBUTES: tuple[tuple[str, str], ...] = (
+    ("method", "how the transition and the anchor are computed"),
+    ("activity", "the activity z of the path's ln z"),
+    ("hot_temperature_K", "temperature of the path's supercritical isotherm (K)"),
+)
+
 
 #: Every row of a kernel file, in the order the writer writes them.
 SCHEMA: tuple[Entry, ...] = (
@@ -621,6 +703,24 @@ SCHEMA: tuple[Entry, ...] = (
             ),
         )
     ),
+    # ---- equilibrium branch (optional, since 1.1; gcmc.kernel.eqbranch) ---------------------
+    *(
+        _a(
+            "equilibrium",
+            name,
+            "float64" if name.endswith("_K") else "str",
+            meaning,
+            required=False,
+            since="1.1",
+        )
+        for name, meaning in EQUILIBRIUM_ATTRIBUTES
+    ),
+    *(
+        Entry(
+            "equilibrium", name, "dataset", dtype, dims, unit, meaning, required=False, since="1.1"
+        )
+        for name, dtype, dims, unit, meaning in EQUILIBRIUM_DATASETS
+    ),
 )
 
 #: Quantities stored per simulated point, with their units (dataset name -> units).
@@ -679,6 +779,18 @@ _GROUP_NOTES: dict[str, str] = {
         "`zero` marks a pore too narrow for the probe: no parameters, n = 0."
     ),
     "extra": "`extra@order` keeps the order of the free datasets.",
+    "equilibrium": (
+        "Optional (schema 1.1; builds with an `[equilibrium]` table). Per temperature and "
+        "width: the equilibrium transition of a pore whose adsorption and desorption branches "
+        "part (`gcmc.kernel.equilibrium`: the grand potentials of both branches by "
+        "thermodynamic integration, equal at f_eq; Peterson & Gubbins, Mol. Phys. 62 (1987) "
+        "215), the equilibrium branch on the pressure grid (adsorption below f_eq, desorption "
+        "above; the adsorption branch where there is no loop), and the liquid branch's anchor: "
+        "beta Omega/V of the top grid point integrated along a reversible path of simulated "
+        "states, d(beta Omega/V) = u d beta - n d ln z, z = f/(kT), through a supercritical "
+        "isotherm (`gcmc.pipeline.anchor`). `S` is the number of states of the path "
+        "(NaN-padded). Files without the group read as before (`KernelData.equilibrium` None)."
+    ),
     "isosteric_heat": (
         "Optional (kernels built since the heat kernel exists). The isosteric-heat kernel, "
         "fitted across pressure per width (`gcmc.kernel.heat`, `gcmc.pipeline.heat`): q_st(n) "
@@ -707,7 +819,7 @@ def render_markdown() -> str:
         "strings) except the scalar text datasets and `/extra`; a dataset marked *d* also has "
         "its meaning as a `description` attribute. Shapes: `T` temperatures, `W` pore widths, "
         "`P` pressures per temperature (NaN-padded), `D` dense-table pressures, `K` the "
-        "largest number of fit parameters."
+        "largest number of fit parameters, `S` the states of an equilibrium anchor path."
     )
     for group in ("", *dict.fromkeys(e.group for e in SCHEMA if e.group)):
         rows = group_entries(group)

@@ -1,6 +1,6 @@
 """The kernel library writer: one HDF5 file per kernel version, ``<name>.v<version>.h5``.
 
-The layout (schema 1.0) is documented in kernels/README.md; :mod:`gcmc.reader` reads it back.
+The layout (schema 1.1) is documented in kernels/README.md; :mod:`gcmc.reader` reads it back.
 The rows written and their order come from the schema table (:mod:`gcmc.kernel.schema`).
 Files are never overwritten and never left half-written: a kernel is written to a temporary
 file in the target folder, checksummed, read back and verified, fsynced, and only then given
@@ -28,9 +28,10 @@ from gcmc.files import atomic_path
 from gcmc.kernel import forms as _forms
 from gcmc.kernel import schema as _schema
 from gcmc.kernel.data import POINT_FIELDS, FitRecord, KernelData
+from gcmc.kernel.eqbranch import EQ_GROUP, validate_equilibrium, write_equilibrium
 from gcmc.kernel.heat import HEAT_GROUP, validate_heat, write_heat
 from gcmc.kernel.reader import compute_checksums, open_kernel, simulated_ranges
-from gcmc.kernel.schema import CHECKSUM_ATTR, DICT_LAYOUT_ATTR, FORMAT_NAME, SCHEMA_VERSION
+from gcmc.kernel.schema import CHECKSUM_ATTR, DICT_LAYOUT_ATTR, FORMAT_NAME
 
 #: Kernel names: used in file names, so letters, digits and ``_ . + -`` only.
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]*$")
@@ -326,6 +327,8 @@ def validate(data: KernelData) -> None:
     _arr(data.task_seconds, "task_seconds", (n_t, n_w))
     if data.heat is not None:
         validate_heat(data.heat, n_t, n_w)
+    if data.equilibrium is not None:
+        validate_equilibrium(data.equilibrium, n_t, n_w, n_p)
     if not isinstance(data.extra, dict):
         raise InputError("extra: must be a dict name -> array")
     for key, value in data.extra.items():
@@ -496,7 +499,9 @@ def _row_values(data: KernelData) -> dict[str, Any]:
     values.update(
         {
             "@format": FORMAT_NAME,
-            "@schema_version": SCHEMA_VERSION,
+            "@schema_version": _schema.file_schema_version(
+                {EQ_GROUP} if data.equilibrium is not None else set()
+            ),
             "@created": str(prov.get("created") or _utc_now()),
             "@config_hash": kernel_config_hash(data),
             "@code_version": str(prov.get("code_version") or f"gcmc {__version__}"),
@@ -589,6 +594,10 @@ def _write_contents(f: h5py.File, data: KernelData) -> None:
         if e.group == HEAT_GROUP:  # optional: gcmc.kernel.heat writes the group's rows
             if e.name == "form" and data.heat is not None:
                 write_heat(f, data.heat)
+            continue
+        if e.group == EQ_GROUP:  # optional: gcmc.kernel.eqbranch writes the group's rows
+            if e.name == "method" and data.equilibrium is not None:
+                write_equilibrium(f, data.equilibrium)
             continue
         g = f.require_group(e.group) if e.group else f
         if e.group == "extra" and e.name == "<name>":

@@ -76,6 +76,9 @@ class BuildResult:
     workers: int = 1
     ranks: int = 1
     refinement: dict | None = None
+    #: the anchor paths of the equilibrium branch (``written`` with an [equilibrium] table):
+    #: tasks, points and CPU seconds (from their task files)
+    equilibrium: dict | None = None
 
     @property
     def ok(self) -> bool:
@@ -222,6 +225,9 @@ def _run_plan(result: BuildResult, pool, rank: int, size: int, progress: bool) -
             missing = _bcast(size, result.missing)
             if not missing:
                 layout, extra = _refine_rounds(result, pool, rank, size, progress, log)
+        anchors: list = []
+        if cfg.equilibrium is not None and not _bcast(size, bool(result.missing)):
+            anchors = _anchor_round(result, pool, rank, size, progress, log, layout)
         if rank != 0:
             result.status = "worker"
             return
@@ -234,8 +240,24 @@ def _run_plan(result: BuildResult, pool, rank: int, size: int, progress: bool) -
             from gcmc.pipeline.assemble import grid_layout
 
             layout = grid_layout(plan)
-        _repair(result, pool, rank, 1, progress, log, layout.tasks())
+        _repair(result, pool, rank, 1, progress, log, layout.tasks() + anchors)
+        if result.missing:
+            log.write(f"build incomplete: {len(result.missing)} task(s) missing")
+            result.status = "incomplete"
+            return
         result.data, result.fits = assemble_kernel(plan, result.version, layout, extra)
+        if cfg.equilibrium is not None:
+            from gcmc.pipeline.anchor import anchor_cost, equilibrium_branch
+
+            result.data.equilibrium = equilibrium_branch(plan, result.data, layout, anchors)
+            result.data.provenance["equilibrium"] = {
+                **cfg.equilibrium.to_dict(),
+                "hot_temperature_K_used": cfg.hot_temperature_K,
+                "anchor_tasks": [a.key for a in anchors],
+                "path": "gcmc.pipeline.anchor: hot isotherm from the Henry limit, cooling at "
+                "fixed ln z, liquid isotherm at the kernel temperature down to the top point",
+            }
+            result.equilibrium = anchor_cost(plan, anchors)
         if extra is not None:
             extra["refinement"]["check"] = _final_check(result.data, cfg)
             result.refinement = extra["refinement"]
@@ -259,6 +281,34 @@ def failure_line(plan: BuildPlan, task: Task) -> str:
         t = plan.temperatures[task.t_index].temperature_K
         h = task.width_H_nm(plan.config)
         return f"task {task.key} (T = {t:g} K, H = {h:g} nm): not run"
+
+
+# --- equilibrium anchors -------------------------------------------------------------------
+
+
+def _anchor_round(result: BuildResult, pool, rank: int, size: int, progress: bool, log, layout):  # noqa: ANN001, ANN202, E501
+    """After the first pass and the refinement rounds: plan (rank 0, from the task files on
+    disk, so a resumed build plans the same) and run (every worker or rank) the anchor path
+    of every pore with a hysteresis loop (gcmc.pipeline.anchor). Returns the anchor tasks on
+    rank 0 ([] elsewhere); a missing one makes the build incomplete."""
+    from gcmc.pipeline.anchor import plan_anchor_tasks
+    from gcmc.pipeline.assemble import assemble_kernel, grid_layout
+
+    plan = result.plan
+    if rank == 0 and layout is None:
+        layout = grid_layout(plan)
+    _repair(result, pool, rank, size, progress, log, layout.tasks() if rank == 0 else None)
+    if _bcast(size, bool(result.missing)):
+        return []
+    todo = None
+    if rank == 0:
+        data, _ = assemble_kernel(plan, result.version, layout)
+        todo = plan_anchor_tasks(plan, data, layout)
+        log.write(f"equilibrium: {len(todo)} pore(s) with a hysteresis loop get an anchor path")
+    missing = _run_round(result, pool, rank, size, progress, log, todo, "equilibrium anchors")
+    if rank == 0 and missing:
+        result.missing = list(missing)
+    return todo if rank == 0 else []
 
 
 # --- refinement rounds ---------------------------------------------------------------------
@@ -287,7 +337,7 @@ def _run_round(
         return []
     sub = replace(result.plan, tasks=list(tasks))
     per = len(result.config.pressures.values) * (2 if result.config.pressures.descending else 1)
-    total = sum(1 if t.is_rerun else per for t in tasks)
+    total = sum(1 if t.is_single else per for t in tasks)  # an anchor path counts as one
     if rank == 0:
         log.write(f"{label}: {len(tasks)} task(s)")
     bar = progress_bar(total, 0, enabled=(rank == 0 and progress))

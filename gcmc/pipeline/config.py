@@ -50,6 +50,7 @@ KNOWN_SECTIONS = {
     "fit",
     "seed",
     "target",
+    "equilibrium",
 }
 
 
@@ -71,6 +72,50 @@ class FitOptions:
     p_value_min: float = 1e-3
     above_range: str = "clamp"
     dense_points: int = 200
+
+
+#: The critical temperature of the full-potential LJ 12-6 fluid in units of epsilon/k: the
+#: simulated fluid's own (the cutoff with the slab tail correction approximates the full
+#: potential). Potoff & Panagiotopoulos, J. Chem. Phys. 109 (1998) 10914: T_c* = 1.3120(7)
+#: (from memory; see ../shared/REFERENCES.md).
+LJ_CRITICAL_TEMPERATURE = 1.3120
+#: ... and its critical pressure, p_c* = p_c sigma^3 / epsilon (same source, p_c* ~ 0.128).
+LJ_CRITICAL_PRESSURE = 0.128
+
+
+@dataclass(frozen=True)
+class EquilibriumSettings:
+    """The ``[equilibrium]`` table: the reversible path that anchors the liquid branch's grand
+    potential of every pore with a hysteresis loop (gcmc.pipeline.anchor).
+
+    ``hot_temperature_factor`` x the bulk critical temperature (the larger of the probe's
+    real-gas T_c and the LJ model fluid's 1.312 epsilon/k) is the temperature of the path's
+    supercritical isotherm, unless ``hot_temperature_K`` is given. A pore's critical
+    temperature lies below the bulk's (capillary critical point; Evans, J. Phys.: Condens.
+    Matter 2 (1990) 8989, from memory), so an isotherm above the bulk T_c crosses no
+    transition in any pore (common practice). ``isotherm_states``, ``cooling_states`` and
+    ``liquid_states`` are the states of the path's three legs, ends included (the legs share
+    their end states); ``dilute_density_sigma3`` is the Henry-law density n sigma^3 of the
+    first, dilute state."""
+
+    hot_temperature_factor: float = 1.1
+    hot_temperature_K: float = 0.0  # 0: hot_temperature_factor x T_c
+    isotherm_states: int = 10
+    cooling_states: int = 6
+    liquid_states: int = 3
+    dilute_density_sigma3: float = 1.0e-3
+
+    def to_dict(self) -> dict[str, Any]:
+        """The settings as a plain dict (for the config hash and the provenance)."""
+        return dict(self.__dict__)
+
+
+def bulk_critical_temperature_K(probe: Probe) -> float:
+    """The bulk critical temperature the anchor path stays above: the larger of the probe's
+    real-gas T_c (where given) and the LJ model fluid's (LJ_CRITICAL_TEMPERATURE)."""
+    tc = LJ_CRITICAL_TEMPERATURE * probe.epsilon_k
+    real = probe.critical_temperature_K
+    return max(tc, real) if math.isfinite(real) else tc
 
 
 @dataclass(frozen=True)
@@ -97,6 +142,27 @@ class RunConfig:
     box_y_nm: float = 0.0
     #: the [target] table (None: no target; the build runs exactly the config's grid)
     target: QualityTarget | None = None
+    #: the [equilibrium] table (None: no equilibrium branch is computed)
+    equilibrium: EquilibriumSettings | None = None
+
+    @property
+    def equilibrium_tag(self) -> str:
+        """8 hex digits of the [equilibrium] settings ("" without the table): part of an
+        anchor task's key."""
+        if self.equilibrium is None:
+            return ""
+        blob = json.dumps(self.equilibrium.to_dict(), sort_keys=True).encode()
+        return hashlib.sha256(blob).hexdigest()[:8]
+
+    @property
+    def hot_temperature_K(self) -> float:
+        """The anchor path's supercritical temperature (NaN without [equilibrium])."""
+        e = self.equilibrium
+        if e is None:
+            return float("nan")
+        if e.hot_temperature_K > 0:
+            return e.hot_temperature_K
+        return e.hot_temperature_factor * bulk_critical_temperature_K(self.probe)
 
     @property
     def refining(self) -> bool:
@@ -120,8 +186,12 @@ class RunConfig:
     @property
     def task_hash(self) -> str:
         """Hash of everything that changes a task's result: the config less its target (a
-        task file does not depend on why it was asked for, so a changed target reuses them)."""
-        blob = json.dumps(self._canon(), sort_keys=True, default=str).encode()
+        task file does not depend on why it was asked for, so a changed target reuses them) and
+        its [equilibrium] table (the ladders do not depend on it; an anchor task's key carries
+        :attr:`equilibrium_tag`)."""
+        canon = self._canon()
+        canon.pop("equilibrium", None)
+        blob = json.dumps(canon, sort_keys=True, default=str).encode()
         return hashlib.sha256(blob).hexdigest()
 
     def _canon(self) -> dict[str, Any]:
@@ -151,6 +221,8 @@ class RunConfig:
             "fit": self.fit.__dict__,
             "seed": self.seed,
             "name": self.name,
+            # enters only where set, so that configs without it keep their hash
+            **({"equilibrium": self.equilibrium.to_dict()} if self.equilibrium is not None else {}),
         }
 
 
@@ -522,6 +594,9 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         raise InputError(f"{p}: seed: expected a non-negative integer, got {seed!r}")
 
     target = _target(f"{p}: target", data["target"]) if "target" in data else None
+    equilibrium = None
+    if "equilibrium" in data:
+        equilibrium = _equilibrium(f"{p}: equilibrium", data["equilibrium"], probe, temps, grid)
     if aim_at_target:
         # the sampler aims at the target's point-error rule (gcmc check's point_errors, with
         # the experiment's absolute noise as the floor): a point runs on, within
@@ -554,7 +629,48 @@ def parse_config(data: dict[str, Any], text: str, path: Path) -> RunConfig:
         lateral_box=lateral,
         box_y_nm=box_y,
         target=target,
+        equilibrium=equilibrium,
     )
+
+
+def _equilibrium(
+    where: str, table: Any, probe: Probe, temps: list[float], grid: PressureGrid
+) -> EquilibriumSettings:
+    """The [equilibrium] table (EquilibriumSettings), validated against the grid."""
+    f = _Fields(where, table)
+    d = EquilibriumSettings()
+    if not grid.descending:
+        raise InputError(
+            f"{where}: needs pressures.descending = true (a loop needs the desorption branch)"
+        )
+    if "hot_temperature_K" in f.table and "hot_temperature_factor" in f.table:
+        raise InputError(f"{where}: give at most one of hot_temperature_K, hot_temperature_factor")
+    s = EquilibriumSettings(
+        hot_temperature_factor=f.number("hot_temperature_factor", d.hot_temperature_factor),  # type: ignore[arg-type]
+        hot_temperature_K=f.number("hot_temperature_K", d.hot_temperature_K, positive=False),  # type: ignore[arg-type]
+        isotherm_states=f.integer("isotherm_states", d.isotherm_states, 3),  # type: ignore[arg-type]
+        cooling_states=f.integer("cooling_states", d.cooling_states, 2),  # type: ignore[arg-type]
+        liquid_states=f.integer("liquid_states", d.liquid_states, 2),  # type: ignore[arg-type]
+        dilute_density_sigma3=f.number("dilute_density_sigma3", d.dilute_density_sigma3),  # type: ignore[arg-type]
+    )
+    f.done()
+    tc = bulk_critical_temperature_K(probe)
+    if "hot_temperature_factor" in f.table and s.hot_temperature_factor <= 1.0:
+        raise InputError(
+            f"{where}.hot_temperature_factor: must be > 1 (the path runs above the bulk "
+            f"T_c = {tc:g} K), got {s.hot_temperature_factor:g}"
+        )
+    if "hot_temperature_K" in f.table and s.hot_temperature_K <= tc:
+        raise InputError(
+            f"{where}.hot_temperature_K: must be above the bulk critical temperature "
+            f"{tc:g} K, got {s.hot_temperature_K:g}"
+        )
+    if not s.dilute_density_sigma3 < 0.1:
+        raise InputError(
+            f"{where}.dilute_density_sigma3: must be < 0.1 (a Henry-law start), got "
+            f"{s.dilute_density_sigma3:g}"
+        )
+    return s
 
 
 def _target(where: str, table: Any) -> QualityTarget:

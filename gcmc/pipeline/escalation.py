@@ -7,7 +7,8 @@ from an empty pore, the second over-filled, so that the two bracket the answer) 
 step of :data:`STEPS`: first longer runs, then the next sampling method the sampler offers
 (biased insertion from the start, then a third replica).
 
-A **dense subcritical** point (below the probe's critical temperature, pore filled beyond
+A **dense subcritical** point (at most 0.82 of the probe's critical temperature, so that the
+certificate's hot rungs have room below 0.9 T_c; pore filled beyond
 :data:`gcmc.sampling.certificate.DENSE_FILLING`: :func:`is_dense_point`) has one step more
 after those, :data:`CERTIFIED`: the certificate of a filled point
 (:func:`gcmc.sampling.certificate.certify_filled_point`, method ``"certified-tempering"`` of

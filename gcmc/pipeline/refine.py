@@ -46,12 +46,12 @@ from gcmc.pipeline.assemble import Layout
 from gcmc.pipeline.escalation import first_step_with_effort, is_dense_point, last_step, step
 from gcmc.pipeline.tasks import BRANCHES, Task, added_width_task
 from gcmc.quality.criteria import (
-    GAP_SIGMA,
     OUTLIER_WARN,
     _branch_arrays,
     _lagrange,
     _neighbours,
     check_henry,
+    width_interval_errors,
 )
 from gcmc.quality.resolution import NoiseModel
 from gcmc.quality.target import QualityTarget
@@ -145,62 +145,40 @@ def gap_findings(
     """Width intervals whose mid-interval interpolation error exceeds the target, each with
     the new widths that refine it (empty: unresolvable at the minimum spacing) and the
     indices of its two widths."""
-    n, _, sig = _branch_arrays(data, "adsorption")
+    n, _, _ = _branch_arrays(data, "adsorption")
     noise = NoiseModel(target.noise_rel, target.noise_abs_mmol_cm3)
     w_all = np.asarray(data.widths_w_nm, float)
     h_all = np.asarray(data.widths_H_nm, float)
     offset = float(h_all[0] - w_all[0])
     out = []
-    for t in ts:
-        idx = np.flatnonzero(data.accessible[t])
-        for pos in range(idx.size - 1):
-            j, j1 = int(idx[pos]), int(idx[pos + 1])
-            wm = 0.5 * (w_all[j] + w_all[j1])
-            nodes = idx[max(pos - 1, 0) : pos + 3]
-            lin = 0.5 * (n[t, j] + n[t, j1])
-            if nodes.size < 3:
-                continue
-            err = np.abs(_lagrange(w_all[nodes], n[t, nodes], wm) - lin)
-            tol = (
-                GAP_SIGMA * 0.5 * np.hypot(sig[t, j], sig[t, j1])
-                + target.width_tolerance
-                * noise.sigma(MMOL_PER_CM3_PER_NM3 * lin)
-                / MMOL_PER_CM3_PER_NM3
-            )
-            ok = np.isfinite(err) & np.isfinite(tol) & (tol > 0)
-            if not np.any(ok):
-                continue
-            ratio = np.where(ok, err / np.where(ok, tol, 1.0), 0.0)
-            k = int(np.argmax(ratio))
-            r = float(ratio[k])
-            if r <= 1.0:
-                continue
-            h0, h1 = float(h_all[j]), float(h_all[j1])
-            where = f"T = {data.temperatures_K[t]:g} K, H in [{h0:.4g}, {h1:.4g}] nm"
-            detail = (
-                f"interpolation error {r:.2f} x tolerance at p = {data.pressures_Pa[t, k]:.4g} Pa"
-            )
-            room = int(math.floor((h1 - h0) / target.min_spacing_nm + 1e-9))
-            if room < 2:
-                out.append(
-                    (
-                        Finding(
-                            "gap",
-                            where,
-                            detail + f"; spacing {h1 - h0:.4g} nm is at the minimum "
-                            f"{target.min_spacing_nm:g} nm",
-                            "unresolvable",
-                            r,
-                        ),
-                        [],
-                        (j, j1),
-                    )
+    for iv in width_interval_errors(data, ts, noise, target.width_tolerance):
+        t, j, j1, k, r, nodes = iv.t, iv.j, iv.j1, iv.worst, iv.ratio, iv.nodes
+        if nodes.size < 3 or r <= 1.0:
+            continue
+        h0, h1 = float(h_all[j]), float(h_all[j1])
+        where = f"T = {data.temperatures_K[t]:g} K, H in [{h0:.4g}, {h1:.4g}] nm"
+        detail = f"interpolation error {r:.2f} x tolerance at p = {data.pressures_Pa[t, k]:.4g} Pa"
+        room = int(math.floor((h1 - h0) / target.min_spacing_nm + 1e-9))
+        if room < 2:
+            out.append(
+                (
+                    Finding(
+                        "gap",
+                        where,
+                        detail + f"; spacing {h1 - h0:.4g} nm is at the minimum "
+                        f"{target.min_spacing_nm:g} nm",
+                        "unresolvable",
+                        r,
+                    ),
+                    [],
+                    (j, j1),
                 )
-                continue
-            parts = min(max(2, math.ceil(math.sqrt(r))), MAX_SPLIT, room)
-            new = place_widths(w_all[nodes], n[t, nodes][:, k], h0, h1, parts, offset)
-            new = _spaced(new, h0, h1, target.min_spacing_nm, parts)
-            out.append((Finding("gap", where, detail, "widths", r), new, (j, j1)))
+            )
+            continue
+        parts = min(max(2, math.ceil(math.sqrt(r))), MAX_SPLIT, room)
+        new = place_widths(w_all[nodes], n[t, nodes][:, k], h0, h1, parts, offset)
+        new = _spaced(new, h0, h1, target.min_spacing_nm, parts)
+        out.append((Finding("gap", where, detail, "widths", r), new, (j, j1)))
     return out
 
 

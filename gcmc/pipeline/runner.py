@@ -185,7 +185,7 @@ def run_tasks_local(plan: BuildPlan, workers: int, log: BuildLog, bar, pool=None
         (report.done if status == "done" else report.failed).append(key)
         log.write(f"task {key} {status} in {seconds:.2f} s {msg}".rstrip())
         if bar is not None:
-            bar.update(1 if "_b" in key else per)  # a point rerun is one point
+            bar.update(1 if ("_b" in key or "_eq" in key) else per)  # a rerun, an anchor: one
             if status != "done":
                 bar.write(msg)
 
@@ -254,7 +254,7 @@ def run_tasks_mpi(plan: BuildPlan, log: BuildLog, bar) -> RunReport:
                         task_path(plan, t).exists() or failure_path(plan, t).exists()
                     ):
                         seen.add(t.key)
-                        bar.update(1 if t.is_rerun else per)
+                        bar.update(1 if t.is_single else per)
                 stop.wait(0.5)
 
         watcher = threading.Thread(target=watch, daemon=True)

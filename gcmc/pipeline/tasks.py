@@ -52,6 +52,8 @@ H_CODE_NM = 1e-5
 #: spawn-key offsets that keep added widths and point reruns apart from the config's grid
 ADDED_WIDTH_KEY = 10_000_000
 RERUN_KEY = 1_000_000
+#: spawn-key word of an equilibrium anchor path task (gcmc.pipeline.anchor)
+ANCHOR_KEY = 2_000_000
 
 
 @dataclass(frozen=True)
@@ -63,7 +65,9 @@ class Task:
     and ``h_code`` = H / H_CODE_NM. A point rerun has ``point >= 0`` (index on the pressure
     axis), its ``branch`` (0 adsorption, 1 desorption) and ``step`` (1, 2, ...); a rerun at
     the certified step carries its CPU budget ``cpu_budget_s`` (set by the planner; not part
-    of the key nor of the random stream)."""
+    of the key nor of the random stream). An equilibrium anchor task (``anchor``: a tag of the
+    ``[equilibrium]`` settings, part of the key, so that changed settings do not reuse a
+    path) runs the reversible path of one (temperature, width) (:mod:`gcmc.pipeline.anchor`)."""
 
     t_index: int
     w_index: int
@@ -73,6 +77,7 @@ class Task:
     branch: int = 0
     step: int = 0
     cpu_budget_s: float = 0.0
+    anchor: str = ""  # an anchor path task: the tag of its [equilibrium] settings
 
     @property
     def width_key(self) -> str:
@@ -85,11 +90,18 @@ class Task:
     def key(self) -> str:
         if self.point >= 0:
             return f"{self.width_key}_b{self.branch}p{self.point:03d}s{self.step}"
+        if self.anchor:
+            return f"{self.width_key}_eq{self.anchor}"
         return self.width_key
 
     @property
     def is_rerun(self) -> bool:
         return self.point >= 0
+
+    @property
+    def is_single(self) -> bool:
+        """Not a pressure ladder: a point rerun or an anchor path (counted apart in progress)."""
+        return self.point >= 0 or bool(self.anchor)
 
     def ladder(self) -> Task:
         """The ladder task this task reruns a point of (itself for a ladder task)."""
@@ -104,6 +116,8 @@ class Task:
         w = ADDED_WIDTH_KEY + self.h_code if self.h_code >= 0 else self.w_index
         if self.point >= 0:
             return (self.t_index, w, RERUN_KEY, self.branch, self.point, self.step)
+        if self.anchor:
+            return (self.t_index, w, ANCHOR_KEY)
         return (self.t_index, w)
 
 
@@ -255,6 +269,10 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
         from gcmc.pipeline.escalation import run_point_task
 
         return run_point_task(plan, task)
+    if task.anchor:
+        from gcmc.pipeline.anchor import run_anchor_task
+
+        return run_anchor_task(plan, task)
     cfg = plan.config
     tp = plan.temperatures[task.t_index]
     model = pore_model(cfg, task.w_index, task.width_H_nm(cfg))

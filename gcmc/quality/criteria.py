@@ -1013,13 +1013,33 @@ def check_width_outliers(kernel: Kernel, ts: list[int]) -> Criterion:
     )
 
 
-def check_width_gaps(kernel: Kernel, settings: CheckSettings, ts: list[int]) -> Criterion:
-    """``width_gaps``: the error of linear interpolation in width at each interval's middle."""
-    data = kernel.data
+@dataclass(frozen=True)
+class IntervalError:
+    """The interpolation error in width at the middle of one interval of accessible widths
+    (``t``: temperature index; ``j``, ``j1``: its two widths): the cubic through up to four
+    neighbouring widths against the linear interpolant, per pressure."""
+
+    t: int
+    j: int
+    j1: int
+    nodes: np.ndarray  # the widths of the cubic (indices)
+    error: np.ndarray  # |cubic - linear| at the middle, nm^-3, per pressure
+    tolerance: np.ndarray  # GAP_SIGMA sigma_mid + noise_scale x noise(n_mid), nm^-3
+    ratio: float  # the worst error / tolerance
+    worst: int  # its pressure index
+    neighbour_sigma: float  # max |n_j1 - n_j| / combined sigma
+
+
+def width_interval_errors(
+    data: KernelData, ts: list[int], noise: NoiseModel, noise_scale: float = 1.0
+) -> list[IntervalError]:
+    """Every interval's mid-interval interpolation error and its tolerance: the shared
+    estimate of the check's ``width_gaps`` and of the build's refinement (which scales the
+    experiment's noise by the target's width tolerance). An interval with fewer than three
+    widths around it has error 0; one without a finite tolerance is left out."""
     n, _, sig = _branch_arrays(data, "adsorption")
     w_all = np.asarray(data.widths_w_nm, float)
-    refine, rows = [], []
-    worst = (0.0, "")
+    out = []
     for t in ts:
         idx = np.flatnonzero(data.accessible[t])
         for pos in range(idx.size - 1):
@@ -1034,35 +1054,48 @@ def check_width_gaps(kernel: Kernel, settings: CheckSettings, ts: list[int]) -> 
                 err = np.zeros_like(lin)
             tol = (
                 GAP_SIGMA * 0.5 * np.hypot(sig[t, j], sig[t, j1])
-                + settings.noise.sigma(_mmol(1.0) * lin) / MMOL_PER_CM3_PER_NM3
+                + noise_scale * noise.sigma(_mmol(1.0) * lin) / MMOL_PER_CM3_PER_NM3
             )
             ok = np.isfinite(err) & np.isfinite(tol) & (tol > 0)
             if not np.any(ok):
                 continue
             ratio = np.where(ok, err / np.where(ok, tol, 1.0), 0.0)
             k = int(np.argmax(ratio))
-            r = float(ratio[k])
-            rows.append(
-                {
-                    "T_K": float(data.temperatures_K[t]),
-                    "interval_w_nm": [float(w_all[j]), float(w_all[j1])],
-                    "interval_H_nm": [float(data.widths_H_nm[j]), float(data.widths_H_nm[j1])],
-                    "interpolation_error_over_tolerance": r,
-                    "max_neighbour_difference_sigma": float(np.nanmax(diff)),
-                }
+            out.append(
+                IntervalError(t, j, j1, nodes, err, tol, float(ratio[k]), k, float(np.nanmax(diff)))
             )
-            text = (
-                f"T = {data.temperatures_K[t]:g} K: refine w in [{w_all[j]:.4g}, "
-                f"{w_all[j1]:.4g}] nm (H in [{data.widths_H_nm[j]:.4g}, "
-                f"{data.widths_H_nm[j1]:.4g}]): interpolation error at the middle "
-                f"{_mmol(err[k]):.3g} mmol/cm3 = {r:.1f} x tolerance at "
-                f"p = {data.pressures_Pa[t, k]:.4g} Pa; neighbours differ by up to "
-                f"{np.nanmax(diff):.0f} sigma"
-            )
-            if r > worst[0]:
-                worst = (r, text)
-            if r > 1.0:
-                refine.append(text)
+    return out
+
+
+def check_width_gaps(kernel: Kernel, settings: CheckSettings, ts: list[int]) -> Criterion:
+    """``width_gaps``: the error of linear interpolation in width at each interval's middle."""
+    data = kernel.data
+    w_all = np.asarray(data.widths_w_nm, float)
+    refine, rows = [], []
+    worst = (0.0, "")
+    for iv in width_interval_errors(data, ts, settings.noise):
+        t, j, j1, k, r = iv.t, iv.j, iv.j1, iv.worst, iv.ratio
+        rows.append(
+            {
+                "T_K": float(data.temperatures_K[t]),
+                "interval_w_nm": [float(w_all[j]), float(w_all[j1])],
+                "interval_H_nm": [float(data.widths_H_nm[j]), float(data.widths_H_nm[j1])],
+                "interpolation_error_over_tolerance": r,
+                "max_neighbour_difference_sigma": iv.neighbour_sigma,
+            }
+        )
+        text = (
+            f"T = {data.temperatures_K[t]:g} K: refine w in [{w_all[j]:.4g}, "
+            f"{w_all[j1]:.4g}] nm (H in [{data.widths_H_nm[j]:.4g}, "
+            f"{data.widths_H_nm[j1]:.4g}]): interpolation error at the middle "
+            f"{_mmol(iv.error[k]):.3g} mmol/cm3 = {r:.1f} x tolerance at "
+            f"p = {data.pressures_Pa[t, k]:.4g} Pa; neighbours differ by up to "
+            f"{iv.neighbour_sigma:.0f} sigma"
+        )
+        if r > worst[0]:
+            worst = (r, text)
+        if r > 1.0:
+            refine.append(text)
     return Criterion(
         key="width_gaps",
         title="gaps between widths (interpolation)",

@@ -46,6 +46,7 @@ from typing import Any
 
 import numpy as np
 
+from gcmc.errors import InputError
 from gcmc.kernel import flags as fl
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.physics.potentials import with_lateral_box
@@ -56,6 +57,17 @@ from gcmc.sampling.tempering import TemperingOutcome, hot_chain_temperatures, si
 #: expected range of 4 independent normal samples, in standard deviations (d_2, n = 4)
 D2_FOUR = 2.059
 MIN_RENEWALS_FLOOR = 3
+
+
+#: the hottest rung stays below this fraction of the probe's critical temperature (the hot
+#: rungs follow the point's p/p0, which needs a saturation pressure)
+HOT_MAX_REDUCED_T = 0.9
+#: tempering needs hot rungs at least this much hotter than the kernel temperature (the
+#: filled argon bilayer melts between about 1.3 and 1.4 T_0: benchmarks/README.md, "Dense
+#: confined phases"); a point closer to T_c than HOT_MAX_REDUCED_T / MIN_HOT_FACTOR = 0.82 T_c
+#: has no room for them, and its pore fluid is mobile (SF6 at 298 K, T/T_c = 0.94; CO2 at
+#: 273 K, 0.90): the point-wise sampler's longer runs serve it, not the certificate
+MIN_HOT_FACTOR = 1.1
 
 
 @dataclass(frozen=True)
@@ -74,9 +86,10 @@ class CertifySettings:
     #: 87.3 -> 122 K kept every swap acceptance at 0.38-0.62 for argon in a 3 sigma pore,
     #: 5 rungs left 0.10 across the bilayer's melting and froze the cold end
     hot_rungs: int = 10
-    #: hottest rung: T_0 x hot_factor, at most hot_max_reduced_t x T_c of the probe
+    #: hottest rung: T_0 x hot_factor, at most hot_max_reduced_t x T_c of the probe (and at
+    #: least MIN_HOT_FACTOR x T_0: :func:`dense_subcritical_state`)
     hot_factor: float = 1.4
-    hot_max_reduced_t: float = 0.9
+    hot_max_reduced_t: float = HOT_MAX_REDUCED_T
     #: p/p0 of the hottest rung (rungs in between: linear in the rung index); None: the
     #: point's own p/p0 at every rung (a lower p/p0 at the hot end widened the melting gap)
     hot_relative_pressure: float | None = None
@@ -171,9 +184,12 @@ def dense_subcritical_state(
 ) -> bool:
     """:func:`is_dense_subcritical` on plain numbers (e.g. a kernel's probe and points): a
     slit, T below a finite critical temperature, and density x sigma^3 > DENSE_FILLING (a NaN
-    density or sigma is not dense)."""
+    density or sigma is not dense), and T at most HOT_MAX_REDUCED_T / MIN_HOT_FACTOR x T_c
+    (room for the certificate's hot rungs)."""
     tc = critical_temperature_K
-    if geometry != SLIT or not math.isfinite(tc) or not temperature_K < tc:
+    if geometry != SLIT or not math.isfinite(tc):
+        return False
+    if not temperature_K * MIN_HOT_FACTOR <= HOT_MAX_REDUCED_T * tc:
         return False
     return bool(density_per_nm3 * sigma_nm**3 > DENSE_FILLING)
 
@@ -186,6 +202,11 @@ def _hot_states(
     t_hot = t0 * cs.hot_factor
     if math.isfinite(tc):
         t_hot = min(t_hot, cs.hot_max_reduced_t * tc)
+    if not t_hot >= t0 * MIN_HOT_FACTOR:
+        raise InputError(
+            f"certificate: T = {t0:g} K leaves no room for hot rungs (the hottest may be "
+            f"{t_hot:.4g} K, at least {MIN_HOT_FACTOR:g} x T needed): use the point-wise sampler"
+        )
     temps = hot_chain_temperatures(t0, t_hot, cs.hot_rungs)
     p0 = eos.saturation_pressure(t0)
     # the point's p/p0 (its fugacity where the EOS gave no pressure: the hot rungs only need

@@ -177,6 +177,12 @@ class PointResult:
     #: ladder), "tempering" (a rung of a tempering chain), "certified-tempering"
     #: (gcmc.sampling.certificate)
     method: str = "point"
+    #: mean configurational energy of the box U/k (K; fluid-fluid + fluid-solid, the energy
+    #: the acceptance rule uses) over all replicas' production samples, and its standard
+    #: error (each replica's block-averaging error, combined for the pooled mean); NaN where
+    #: not measured. The thermodynamic integration of the equilibrium anchor needs <U>.
+    energy_K: float = float("nan")
+    energy_K_stderr: float = float("nan")
 
     def to_dict(self) -> dict[str, Any]:
         """The result as a plain dict."""
@@ -710,6 +716,15 @@ def _analyse(
         if math.isfinite(ratio):
             q = kelvin_to_kj_per_mol(state.temperature_K + state.residual_enthalpy_K - ratio)
             q_err = kelvin_to_kj_per_mol(ratio_err)
+    energy = energy_err = float("nan")
+    if len(u_all):
+        energy = float(u_all.mean())
+        weights = np.array([len(r.n) for r in runs], float) / len(u_all)
+        u_errs = [
+            st.block_average(np.asarray(r.uff + r.usf, float)).stderr if len(r.n) else 0.0
+            for r in runs
+        ]
+        energy_err = float(np.sqrt(np.sum((weights * np.asarray(u_errs)) ** 2)))
     del u_all
     ineff = ests[0].inefficiency
     density = n_mean / vol if vol > 0 else float("nan")
@@ -762,6 +777,8 @@ def _analyse(
         flags=flags,
         pore_volume_nm3=vol,
         replica_insertion_trials=[int(r.k_trials) for r in runs],
+        energy_K=energy,
+        energy_K_stderr=energy_err,
     )
     return PointOutcome(
         result=result,
