@@ -50,6 +50,7 @@ from gcmc.errors import InputError
 from gcmc.kernel import flags as fl
 from gcmc.physics.model import SLIT, PoreModel
 from gcmc.physics.potentials import with_lateral_box
+from gcmc.sampling.box import Box
 from gcmc.sampling.point import PointResult, SamplingSettings, ThermoState, simulate_point
 from gcmc.sampling.tempering import TemperingOutcome, hot_chain_temperatures, simulate_tempering
 
@@ -263,6 +264,7 @@ def _prepare(
     production: int,
     seed: np.random.SeedSequence,
     progress: Callable[[int], None] | None,
+    box_class: type[Box] = Box,
 ) -> Preparation:
     t = time.process_time()
     settings = SamplingSettings(
@@ -286,6 +288,7 @@ def _prepare(
         round_moves=cs.round_moves,
         overfill=(name == "overfilled"),
         progress=progress,
+        box_class=box_class,
     )
     r = out.points[0].result
     n = out.points[0].series_n.astype(float)
@@ -336,9 +339,13 @@ def certify_filled_point(
     settings: CertifySettings | None = None,
     eos: Any = None,
     progress: Callable[[int], None] | None = None,
+    box_class: type[Box] = Box,
+    method: str = "certified-tempering",
 ) -> Certificate:
     """Certify (or flag) a filled point by independent tempering preparations and a box-size
-    check (module docstring). ``model``: a slit; its lateral box is replaced by the hexagonal
+    check (module docstring). ``box_class``/``method``: the Box type of every rung (default:
+    the engine's moves; gcmc.sampling.cavity.CavityBox: cavity-biased exchange) and the
+    method name the verdict carries. ``model``: a slit; its lateral box is replaced by the hexagonal
     one (and, for the check, the hexagonal one of ``box_scale`` x the edge). ``eos``: the
     equation of state that gives the hot rungs' fugacities (default: the one named by
     ``state.eos``, or the Lennard-Jones EOS). Attempts double the production until the
@@ -365,14 +372,18 @@ def certify_filled_point(
     while True:
         seeds = ss.spawn(len(PREPARATIONS) + 1)
         preps = [
-            _prepare(name.split("-")[0], small, states, cs, production, sd, progress)
+            _prepare(name.split("-")[0], small, states, cs, production, sd, progress, box_class)
             for name, sd in zip(PREPARATIONS, seeds, strict=False)
         ]
         for p, name in zip(preps, PREPARATIONS, strict=True):
             p.name = name
-        boxp = _prepare("below", big, big_states, big_cs, production, seeds[-1], progress)
+        boxp = _prepare(
+            "below", big, big_states, big_cs, production, seeds[-1], progress, box_class
+        )
         boxp.name = "below, larger box"
-        cert = judge_preparations(cs, preps, boxp, production, time.process_time() - t_start)
+        cert = judge_preparations(
+            cs, preps, boxp, production, time.process_time() - t_start, method
+        )
         attempt += 1
         spent = time.process_time() - t_start
         if cs.max_production_moves > 0:

@@ -168,6 +168,7 @@ class _Chain:
         round_moves: int,
         capacity: int,
         swap_rule: Callable[..., float],
+        box_class: type[Box] = Box,
     ) -> None:
         self.settings = settings
         self.round_moves = round_moves
@@ -188,7 +189,7 @@ class _Chain:
         self.rungs: list[_Rung] = []
         for k, s in enumerate(states):
             # built at the hottest T: the smallest overlap distance, the largest cell capacity
-            box = Box(
+            box = box_class(
                 model,
                 t_hot,
                 s.activity_nm3,
@@ -366,6 +367,7 @@ def simulate_tempering(
     overfill: bool = False,
     progress: Callable[[int], None] | None = None,
     swap_rule: Callable[..., float] | None = None,
+    box_class: type[Box] = Box,
 ) -> TemperingOutcome:
     """Simulate a chain of (T, z) states with swaps between chain neighbours.
 
@@ -374,7 +376,9 @@ def simulate_tempering(
     empty). ``overfill``: before equilibration, half an equilibration at
     ``settings.overfill_factor`` x each rung's activity. Production runs
     ``settings.production_moves`` moves per rung. ``swap_rule`` replaces
-    :func:`swap_acceptance` (tests only). Records come back per rung, in the order given.
+    :func:`swap_acceptance` (tests only). ``box_class``: the Box type of every rung (a
+    subclass with other moves and the same constructor and ``run``, e.g.
+    gcmc.sampling.cavity.CavityBox). Records come back per rung, in the order given.
     """
     from gcmc.errors import InputError
 
@@ -413,6 +417,7 @@ def simulate_tempering(
         m,
         capacity,
         swap_rule or swap_acceptance,
+        box_class,
     )
     eq = settings.equilibration_moves
     if overfill:
