@@ -5,8 +5,8 @@ loop, along a reversible path of simulated states, and the transition it gives
 Thermodynamics. The grand partition function of the pore, Xi(beta, z) = sum_N z^N / N!
 int exp(-beta U) dr^N, with z = exp(beta mu) / Lambda^3 the activity. For a reservoir gas of
 fugacity f, beta mu = ln(beta f Lambda^3), so z = beta f = f / (k T): the activity the GCMC
-acceptance uses (gcmc.sampling.point.ThermoState.activity_nm3, CONVENTIONS.md: "the kinetic
-factor cancels"), in molecules per nm^3. With this normalisation the kinetic factor is inside
+acceptance uses (gcmc.sampling.point.ThermoState.activity_nm3: the kinetic
+factor cancels), in molecules per nm^3. With this normalisation the kinetic factor is inside
 z, and Xi depends on beta only through exp(-beta U); hence, with beta Omega = -ln Xi,
 
     d(beta Omega / V) = u d beta - n d ln z,   u = <U> / (k V),  n = <N> / V,

@@ -77,7 +77,7 @@ class FitOptions:
 #: The critical temperature of the full-potential LJ 12-6 fluid in units of epsilon/k: the
 #: simulated fluid's own (the cutoff with the slab tail correction approximates the full
 #: potential). Potoff & Panagiotopoulos, J. Chem. Phys. 109 (1998) 10914: T_c* = 1.3120(7)
-#: (from memory; see ../shared/REFERENCES.md).
+#: (from memory).
 LJ_CRITICAL_TEMPERATURE = 1.3120
 #: ... and its critical pressure, p_c* = p_c sigma^3 / epsilon (same source, p_c* ~ 0.128).
 LJ_CRITICAL_PRESSURE = 0.128
