@@ -128,50 +128,59 @@ N_XCOUNTERS = 2
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def grid_cell_of(x, y, z, gp, gi):
     """Index of the grid cell holding (x, y, z) (nm), clamped into the grid."""
-    ix = min(max(int(x * gp[G_IGX]), 0), gi[J_NX] - 1)
-    iy = min(max(int(y * gp[G_IGY]), 0), gi[J_NY] - 1)
-    iz = min(max(int(z * gp[G_IGZ]), 0), gi[J_NZ] - 1)
+    ix, iy, iz = _home_cell(x, y, z, gp, gi)
     return (iz * gi[J_NY] + iy) * gi[J_NX] + ix
+
+
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
+def _home_cell(x, y, z, gp, gi):
+    """The grid indices of the cell holding (x, y, z), clamped to the grid."""
+    ix0 = min(max(int(x * gp[G_IGX]), 0), gi[J_NX] - 1)
+    iy0 = min(max(int(y * gp[G_IGY]), 0), gi[J_NY] - 1)
+    iz0 = min(max(int(z * gp[G_IGZ]), 0), gi[J_NZ] - 1)
+    return ix0, iy0, iz0
+
+
+@njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
+def _stencil_cell(k, ix0, iy0, iz0, x, y, z, gp, gi, stencil):
+    """The flat index of stencil cell ``k`` around the home cell when its centre lies within
+    R_c of (x, y, z) (the distance to the centre of the unwrapped cell: the nearest image,
+    edges > 2 R_c), wrapped periodically; -1 when it does not, or lies beyond a wall."""
+    nx = gi[J_NX]
+    ny = gi[J_NY]
+    nz = gi[J_NZ]
+    jx = ix0 + stencil[k, 0]
+    jy = iy0 + stencil[k, 1]
+    jz = iz0 + stencil[k, 2]
+    dx = x - (jx + 0.5) * gp[G_GX]
+    dy = y - (jy + 0.5) * gp[G_GY]
+    dz = z - (jz + 0.5) * gp[G_GZ]
+    if dx * dx + dy * dy + dz * dz >= gp[G_RC2]:
+        return -1
+    if jz < 0 or jz >= nz:
+        if gi[J_PERZ] != 1:
+            return -1
+        jz = jz + nz if jz < 0 else jz - nz
+    if jx < 0:
+        jx += nx
+    elif jx >= nx:
+        jx -= nx
+    if jy < 0:
+        jy += ny
+    elif jy >= ny:
+        jy -= ny
+    return (jz * ny + jy) * nx + jx
 
 
 @njit(cache=True, error_model="numpy", boundscheck=False, inline="always")
 def occupy(x, y, z, delta, gp, gi, stencil, allowed, occ, cav_list, cav_pos):
     """Add ``delta`` (+1 or -1) to occ of every grid cell whose centre is within R_c of (x, y,
     z), keeping the cavity list (allowed cells with occ == 0) and n_cav up to date."""
-    nx = gi[J_NX]
-    ny = gi[J_NY]
-    nz = gi[J_NZ]
-    gx = gp[G_GX]
-    gy = gp[G_GY]
-    gz = gp[G_GZ]
-    rc2 = gp[G_RC2]
-    perz = gi[J_PERZ] == 1
-    ix0 = min(max(int(x * gp[G_IGX]), 0), nx - 1)
-    iy0 = min(max(int(y * gp[G_IGY]), 0), ny - 1)
-    iz0 = min(max(int(z * gp[G_IGZ]), 0), nz - 1)
+    ix0, iy0, iz0 = _home_cell(x, y, z, gp, gi)
     for k in range(stencil.shape[0]):
-        jx = ix0 + stencil[k, 0]
-        jy = iy0 + stencil[k, 1]
-        jz = iz0 + stencil[k, 2]
-        # distance to the centre of the unwrapped cell: the nearest image (edges > 2 R_c)
-        dx = x - (jx + 0.5) * gx
-        dy = y - (jy + 0.5) * gy
-        dz = z - (jz + 0.5) * gz
-        if dx * dx + dy * dy + dz * dz >= rc2:
+        c = _stencil_cell(k, ix0, iy0, iz0, x, y, z, gp, gi, stencil)
+        if c < 0:
             continue
-        if jz < 0 or jz >= nz:
-            if not perz:
-                continue
-            jz = jz + nz if jz < 0 else jz - nz
-        if jx < 0:
-            jx += nx
-        elif jx >= nx:
-            jx -= nx
-        if jy < 0:
-            jy += ny
-        elif jy >= ny:
-            jy -= ny
-        c = (jz * ny + jy) * nx + jx
         old = occ[c]
         occ[c] = old + delta
         if allowed[c] == 0:
@@ -195,41 +204,11 @@ def occupy(x, y, z, delta, gp, gi, stencil, allowed, occ, cav_list, cav_pos):
 def freed_cells(x, y, z, gp, gi, stencil, allowed, occ):
     """Allowed grid cells that would become cavities if the molecule at (x, y, z) were
     removed: those within R_c of it with occ == 1 (it is their only centre)."""
-    nx = gi[J_NX]
-    ny = gi[J_NY]
-    nz = gi[J_NZ]
-    gx = gp[G_GX]
-    gy = gp[G_GY]
-    gz = gp[G_GZ]
-    rc2 = gp[G_RC2]
-    perz = gi[J_PERZ] == 1
-    ix0 = min(max(int(x * gp[G_IGX]), 0), nx - 1)
-    iy0 = min(max(int(y * gp[G_IGY]), 0), ny - 1)
-    iz0 = min(max(int(z * gp[G_IGZ]), 0), nz - 1)
+    ix0, iy0, iz0 = _home_cell(x, y, z, gp, gi)
     count = 0
     for k in range(stencil.shape[0]):
-        jx = ix0 + stencil[k, 0]
-        jy = iy0 + stencil[k, 1]
-        jz = iz0 + stencil[k, 2]
-        dx = x - (jx + 0.5) * gx
-        dy = y - (jy + 0.5) * gy
-        dz = z - (jz + 0.5) * gz
-        if dx * dx + dy * dy + dz * dz >= rc2:
-            continue
-        if jz < 0 or jz >= nz:
-            if not perz:
-                continue
-            jz = jz + nz if jz < 0 else jz - nz
-        if jx < 0:
-            jx += nx
-        elif jx >= nx:
-            jx -= nx
-        if jy < 0:
-            jy += ny
-        elif jy >= ny:
-            jy -= ny
-        c = (jz * ny + jy) * nx + jx
-        if occ[c] == 1 and allowed[c] != 0:
+        c = _stencil_cell(k, ix0, iy0, iz0, x, y, z, gp, gi, stencil)
+        if c >= 0 and occ[c] == 1 and allowed[c] != 0:
             count += 1
     return count
 
