@@ -46,7 +46,6 @@ transition is gcmc.kernel.equilibrium.pore_transition with it.
 
 from __future__ import annotations
 
-import json
 import math
 import socket
 import time
@@ -65,11 +64,11 @@ from gcmc.pipeline.tasks import (
     BuildPlan,
     Task,
     TemperaturePlan,
-    finish_task,
     load_task,
     pore_model,
     task_path,
     task_seed,
+    write_task,
 )
 
 if TYPE_CHECKING:
@@ -254,9 +253,7 @@ def run_anchor_task(plan: BuildPlan, task: Task) -> Path:
         for k, v in row.items():
             arrays[f"path/{k}"][i] = v
         flags.append("; ".join(r.flags))
-    seconds = time.perf_counter() - t_start
     meta = {
-        "task": task.key,
         "t_index": task.t_index,
         "w_index": task.w_index,
         "temperature_K": tp.temperature_K,
@@ -264,19 +261,20 @@ def run_anchor_task(plan: BuildPlan, task: Task) -> Path:
         "width_H_nm": model.width_nm,
         "flags": flags,
         "host": socket.gethostname(),
-        "seconds": seconds,
-        "seed_entropy": int(cfg.seed),
-        "spawn_key": list(task.spawn_key()),
         "equilibrium": cfg.equilibrium.to_dict() if cfg.equilibrium else None,
     }
     arrays["henry_density0_per_nm3"] = np.array(path.henry_density0_per_nm3)
     arrays["henry_hot_per_nm3_per_pa"] = np.array(
         pore_limit(model, cfg.hot_temperature_K).henry_per_nm3_per_pa
     )
-    arrays["seconds"] = np.array(seconds)
-    arrays["cpu_seconds"] = np.array(time.process_time() - c_start)
-    arrays["meta_json"] = np.frombuffer(json.dumps(meta, sort_keys=True).encode(), dtype=np.uint8)
-    return finish_task(plan, task, arrays)
+    return write_task(
+        plan,
+        task,
+        arrays,
+        meta,
+        seconds=time.perf_counter() - t_start,
+        cpu_seconds=time.process_time() - c_start,
+    )
 
 
 # --------------------------------------------------------------------------------------------

@@ -260,11 +260,11 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
     from gcmc.physics.henry import pore_limit
     from gcmc.pipeline.tasks import (
         BRANCHES,
-        finish_task,
         point_field,
         point_state,
         pore_model,
         task_seed,
+        write_task,
     )
     from gcmc.sampling.point import simulate_point
 
@@ -319,7 +319,6 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
         arrays[f"point/{name}"] = np.array(float(point_field(r, name)))
     limit = pore_limit(model, tp.temperature_K)
     meta = {
-        "task": task.key,
         "t_index": task.t_index,
         "width_H_nm": model.width_nm,
         "branch": BRANCHES[task.branch],
@@ -328,16 +327,8 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
         "method": s.method,
         "effort": s.effort,
         "flags": "; ".join(r.flags),
-        "seconds": seconds,
-        "seed_entropy": int(cfg.seed),
-        "spawn_key": list(task.spawn_key()),
         **extra,
     }
-    import json
-
     arrays["henry_per_nm3_per_pa"] = np.array(limit.henry_per_nm3_per_pa)
     arrays["accessible"] = np.array(limit.accessible)
-    arrays["seconds"] = np.array(seconds)
-    arrays["cpu_seconds"] = np.array(cpu)
-    arrays["meta_json"] = np.frombuffer(json.dumps(meta, sort_keys=True).encode(), dtype=np.uint8)
-    return finish_task(plan, task, arrays)
+    return write_task(plan, task, arrays, meta, seconds=seconds, cpu_seconds=cpu)

@@ -322,22 +322,45 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
             for name in POINT_FIELDS:
                 arrays[f"{branch}/{name}"][k] = point_field(r, name)
             flags[branch][k] = "; ".join(r.flags)
-    seconds = time.perf_counter() - t_start
-    cpu_seconds = time.process_time() - c_start
     meta = {
-        "task": task.key,
         "t_index": task.t_index,
         "w_index": task.w_index,
         "temperature_K": tp.temperature_K,
         "width_H_nm": model.width_nm,
         "flags": flags,
         "host": socket.gethostname(),
-        "seconds": seconds,
-        "seed_entropy": int(cfg.seed),
-        "spawn_key": list(task.spawn_key()),
     }
     arrays["henry_per_nm3_per_pa"] = np.array(limit.henry_per_nm3_per_pa)
     arrays["accessible"] = np.array(limit.accessible)
+    return write_task(
+        plan,
+        task,
+        arrays,
+        meta,
+        seconds=time.perf_counter() - t_start,
+        cpu_seconds=time.process_time() - c_start,
+    )
+
+
+def write_task(
+    plan: BuildPlan,
+    task: Task,
+    arrays: dict[str, np.ndarray],
+    meta: dict,
+    *,
+    seconds: float,
+    cpu_seconds: float,
+) -> Path:
+    """Write a finished task of any kind (ladder, rerun, anchor): its arrays, its wall and
+    CPU seconds, and its metadata (``meta`` with the fields every task file carries: the
+    task's key, seconds, the seed's entropy and the task's spawn key), atomically."""
+    meta = {
+        **meta,
+        "task": task.key,
+        "seconds": seconds,
+        "seed_entropy": int(plan.config.seed),
+        "spawn_key": list(task.spawn_key()),
+    }
     arrays["seconds"] = np.array(seconds)
     arrays["cpu_seconds"] = np.array(cpu_seconds)
     arrays["meta_json"] = np.frombuffer(json.dumps(meta, sort_keys=True).encode(), dtype=np.uint8)
