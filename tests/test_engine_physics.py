@@ -505,6 +505,9 @@ def test_ideal_gas_mean_and_poisson_fluctuations(k: int) -> None:
     n = out.series_n.astype(float)
     n_eff = len(n) / max(r.statistical_inefficiency, 1.0)
     assert abs(n.var(ddof=1) / n.mean() - 1) <= 4 * math.sqrt((2 + 1 / IDEAL_N) / n_eff)
+    # the point's own fluctuation (one replica: the production series' variance) is the
+    # same Poisson variance
+    assert r.molecules_variance == pytest.approx(n.var(ddof=1), rel=1e-9)
 
 
 @dataclass(frozen=True)

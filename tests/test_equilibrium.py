@@ -349,3 +349,66 @@ def test_a_reversible_path_gives_the_anchor_and_the_transition():
     assert abs(wrong.beta_omega_per_nm3 - exact) > 20 * path.anchor[1]
     with pytest.raises(InputError, match="path"):
         eq.path_grand_potential(beta[:2], ln_lam[:2], n[:2], u[:2], 0.0)
+
+
+# --- the path's reversibility check: changes against the fluctuations at both ends ---------
+def _lattice_path():
+    """The reversible path of the test above with the mean-field lattice gas's exact
+    fluctuations (per volume): with g = d theta/d ln lambda = theta (1 - theta) /
+    (1 - beta eps theta (1 - theta)), var N / V = n_m g, cov(N, U/k) / V = -eps n_m theta g
+    and var(U/k) / V = eps^2 n_m theta^2 g (the derivatives of n and u = -(eps/2) n_m theta^2
+    in ln lambda and beta: exact)."""
+    b_hi, b_lo = 1 / (2 * T_K), 1 / T_K
+    leg1 = np.linspace(np.log(1e-3), 0.0, 24)
+    leg2 = np.linspace(b_hi, b_lo, 8)[1:]
+    leg3 = np.linspace(0.0, -1.0, 5)[1:]
+    beta = np.concatenate([np.full(leg1.size, b_hi), leg2, np.full(leg3.size, b_lo)])
+    ln_lam = np.concatenate([leg1, np.zeros(leg2.size), leg3])
+    theta = _theta_at(beta, ln_lam)
+    g = theta * (1 - theta) / (1 - beta * EPS_K * theta * (1 - theta))
+    n = N_M * theta
+    u = -(EPS_K / 2) * N_M * theta**2
+    fl = (N_M * g, -EPS_K * N_M * theta * g, EPS_K**2 * N_M * theta**2 * g)
+    return beta, ln_lam, n, u, fl
+
+
+def _ratios(beta, ln_lam, n, u, fl, err=0.0):
+    e = np.full(beta.size, err)
+    return eq.path_jumps(beta, ln_lam, n, e, u, e, *fl)
+
+
+def test_a_reversible_path_has_no_jump():
+    # exact limit: without noise, the change over each interval is the mean of the exact
+    # derivative inside, which lies within the end values unless the derivative peaks
+    # inside; this path's derivatives vary slowly from state to state (ratios about 1)
+    beta, ln_lam, n, u, fl = _lattice_path()
+    r = _ratios(beta, ln_lam, n, u, fl)
+    assert r.shape == (beta.size - 1, 2) and np.all(np.isfinite(r))
+    assert np.max(r) < 1.3, np.max(r)
+    assert eq.worst_path_jump(r) is None
+    # the wrong derivative of u along the beta leg (cov(N, U) for var U, a factor eps/theta
+    # off) reads the same path as a jump: the check can fail
+    wrong = (fl[0], fl[1], -fl[1])
+    assert eq.worst_path_jump(_ratios(beta, ln_lam, n, u, wrong)) is not None
+
+
+def test_a_path_that_freezes_is_not_reversible():
+    # the path switches to a denser, much lower-energy state with small fluctuations (a
+    # pore liquid freezing) in the middle of the cooling leg: the jump is found there, and
+    # the stored reason says which states it lies between
+    beta, ln_lam, n, u, fl = _lattice_path()
+    k = 27  # the fourth state of the cooling leg
+    n2, u2 = n.copy(), u.copy()
+    n2[k:] *= 1.05
+    u2[k:] *= 1.25
+    fl2 = tuple(np.where(np.arange(beta.size) >= k, 0.2 * a, a) for a in fl)
+    jump = eq.worst_path_jump(_ratios(beta, ln_lam, n2, u2, fl2))
+    assert jump is not None and jump.index == k - 1 and jump.quantity == "energy"
+    text = eq.describe_path_jump(jump, 1 / beta, ln_lam)
+    assert text.startswith(eq.PATH_JUMP) and f"states {k - 1} and {k}" in text
+    # the same change within 4 combined standard errors is noise, not a jump
+    big = float(np.max(np.abs(np.diff(u2)))) / 4
+    assert eq.worst_path_jump(_ratios(beta, ln_lam, n2, u2, fl2, err=big)) is None
+    # a state without its fluctuations is not judged
+    nan = tuple(np.full(beta.size, np.nan) for _ in fl)
+    assert eq.worst_path_jump(_ratios(beta, ln_lam, n2, u2, nan)) is None

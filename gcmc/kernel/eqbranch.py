@@ -23,6 +23,10 @@ from gcmc.errors import InputError
 from gcmc.kernel.schema import EQUILIBRIUM_DATASETS as DATASETS
 
 EQ_GROUP = "equilibrium"
+#: datasets added to the group after its first files: read as NaN where absent
+_LATER = frozenset(
+    {"path_n_variance_per_nm3", "path_nu_covariance_K_per_nm3", "path_u_variance_K2_per_nm3"}
+)
 EQ_METHOD = (
     "thermodynamic integration of beta Omega/V along both branches (gas: from the Henry "
     "limit; liquid: from an anchor at the top grid point, integrated along a reversible path "
@@ -58,6 +62,9 @@ class EquilibriumBranch:
     path_energy_K_per_nm3: np.ndarray
     path_energy_K_per_nm3_stderr: np.ndarray
     path_converged: np.ndarray
+    path_n_variance_per_nm3: np.ndarray
+    path_nu_covariance_K_per_nm3: np.ndarray
+    path_u_variance_K2_per_nm3: np.ndarray
     hot_temperature_K: float = float("nan")
 
     @classmethod
@@ -137,6 +144,8 @@ def read_equilibrium(f: Any, values: dict[str, Any] | None = None) -> Equilibriu
         key = f"{EQ_GROUP}/{name}"
         if values is not None and key in values:
             v = np.array(values[key])
+        elif name not in g and name in _LATER:
+            v = np.full(np.shape(g["path_ln_z"]), np.nan)  # written before the field was
         elif dtype == "str":
             v = np.array(g[name].asstr()[()])
         else:

@@ -605,3 +605,122 @@ def path_grand_potential(
     var = float(np.sum((wz * sn) ** 2) + np.sum((wb * su) ** 2))
     tail_err = abs(n[0] - float(henry_density0_per_nm3)) / 4
     return PathIntegral(start + total, float(np.sqrt(var)), integ + tail_err)
+
+
+# --------------------------------------------------------------------------------------------
+# is the path reversible? the changes between states against the fluctuations at its ends
+# --------------------------------------------------------------------------------------------
+#: an interval of a path is a jump when a mean changes by more than PATH_JUMP_FACTOR x the
+#: larger of its two end derivatives x the step, after PATH_JUMP_Z combined standard errors
+#: of the change are allowed for noise (:func:`path_jumps`)
+PATH_JUMP_FACTOR = 2.0
+PATH_JUMP_Z = 4.0
+#: the reason stored for a pore whose anchor path has a jump (formatted by
+#: :func:`describe_path_jump`)
+PATH_JUMP = "the anchor path is not reversible"
+
+
+@dataclass(frozen=True)
+class PathJump:
+    """The worst interval of a path (:func:`path_jumps`): states i -> i + 1, the quantity
+    ("density" or "energy") and its ratio, change / (larger end derivative x step)."""
+
+    index: int
+    quantity: str
+    ratio: float
+
+
+def path_jumps(
+    beta_per_K: np.ndarray,
+    ln_z: np.ndarray,
+    density_per_nm3: np.ndarray,
+    density_stderr: np.ndarray,
+    energy_K_per_nm3: np.ndarray,
+    energy_stderr: np.ndarray,
+    n_variance_per_nm3: np.ndarray,
+    nu_covariance_K_per_nm3: np.ndarray,
+    u_variance_K2_per_nm3: np.ndarray,
+) -> np.ndarray:
+    """Per interval i -> i + 1 of a path (shape (m - 1, 2): density, energy): the change of
+    the mean beyond its noise, over the largest change the fluctuations at the two ends
+    allow. A value above PATH_JUMP_FACTOR marks a jump; NaN where a state lacks its
+    fluctuations or the interval changes both variables.
+
+    The grand canonical means have exact derivatives in their fluctuations, at a fixed
+    activity z = f/(kT) (n = <N>/V, u = <U/k>/V; module docstring of gcmc.pipeline.anchor):
+
+        dn/d ln z = var N / V,         du/d ln z = cov(N, U/k) / V,
+        dn/d beta = -cov(N, U/k) / V,  du/d beta = -var(U/k) / V.
+
+    Along a leg in x (ln z at fixed beta, beta at fixed ln z) the change of a mean over an
+    interval is the mean of its derivative inside; where that derivative varies monotonically
+    between the ends, the change lies within [min, max] of (end derivative x step). A change
+    of several times the larger end value needs a peak of the derivative inside the interval:
+    a transition crossed between the two states (a freezing pore liquid, layering), or a
+    path too coarse for a sharp feature. In either case the integral across it is not
+    trusted: a crossing on a metastable branch (hysteresis) integrates the wrong states, and
+    a sharp peak between two nodes is not resolved. The energy is the sharper test of
+    freezing (the latent heat changes u by far more than the density changes n).
+    """
+    b = _vec(beta_per_K, "beta_per_K")
+    z = _vec(ln_z, "ln_z")
+    cols = [
+        _vec(a, name)
+        for a, name in (
+            (density_per_nm3, "density_per_nm3"),
+            (density_stderr, "density_stderr"),
+            (energy_K_per_nm3, "energy_K_per_nm3"),
+            (energy_stderr, "energy_stderr"),
+            (n_variance_per_nm3, "n_variance_per_nm3"),
+            (nu_covariance_K_per_nm3, "nu_covariance_K_per_nm3"),
+            (u_variance_K2_per_nm3, "u_variance_K2_per_nm3"),
+        )
+    ]
+    m = b.size
+    if m < 2 or z.size != m or any(c.size != m for c in cols):
+        raise InputError("path: every field needs the same length (>= 2)")
+    n, sn, u, su, vn, cnu, vu = cols
+    out = np.full((m - 1, 2), np.nan)
+    for i in range(m - 1):
+        k = i + 1
+        if b[k] == b[i] and z[k] != z[i]:
+            dx, slopes = z[k] - z[i], ((vn[i], vn[k]), (cnu[i], cnu[k]))
+        elif z[k] == z[i] and b[k] != b[i]:
+            dx, slopes = b[k] - b[i], ((-cnu[i], -cnu[k]), (-vu[i], -vu[k]))
+        else:
+            continue
+        for q, (mean, err, (d0, d1)) in enumerate(((n, sn, slopes[0]), (u, su, slopes[1]))):
+            if not all(np.isfinite(v) for v in (mean[i], mean[k], d0, d1)):
+                continue
+            noise = PATH_JUMP_Z * float(np.hypot(np.nan_to_num(err[i]), np.nan_to_num(err[k])))
+            excess = abs(mean[k] - mean[i]) - noise
+            bound = max(abs(d0), abs(d1)) * abs(dx)
+            if excess <= 0:
+                out[i, q] = 0.0
+            else:
+                out[i, q] = excess / bound if bound > 0 else np.inf
+    return out
+
+
+def worst_path_jump(ratios: np.ndarray) -> PathJump | None:
+    """The interval and quantity of the largest ratio of :func:`path_jumps` when it exceeds
+    PATH_JUMP_FACTOR; None for a path without a jump (or without fluctuations to judge)."""
+    r = np.asarray(ratios, float)
+    if r.size == 0 or not np.any(np.isfinite(r)):
+        return None
+    i, q = np.unravel_index(int(np.nanargmax(r)), r.shape)
+    if not r[i, q] > PATH_JUMP_FACTOR:
+        return None
+    return PathJump(int(i), ("density", "energy")[int(q)], float(r[i, q]))
+
+
+def describe_path_jump(jump: PathJump, temperature_K: np.ndarray, ln_z: np.ndarray) -> str:
+    """The one-line reason of a pore whose anchor path has ``jump``."""
+    i, k = jump.index, jump.index + 1
+    t, z = np.asarray(temperature_K, float), np.asarray(ln_z, float)
+    return (
+        f"{PATH_JUMP}: between states {i} and {k} (T {t[i]:.4g} -> {t[k]:.4g} K, ln z "
+        f"{z[i]:.4g} -> {z[k]:.4g}) the {jump.quantity} changes {jump.ratio:.3g} x what the "
+        "fluctuations at both ends allow (a transition crossed, e.g. a freezing pore liquid, "
+        "or a path too coarse)"
+    )

@@ -235,6 +235,27 @@ EQUILIBRIUM_DATASETS: tuple[tuple[str, str, str, str, str], ...] = (
     ),
     ("path_energy_K_per_nm3_stderr", "float64", "TWS", "K nm^-3", "standard error of u"),
     ("path_converged", "bool", "TWS", "bool", "the state's point is converged (no flag)"),
+    (
+        "path_n_variance_per_nm3",
+        "float64",
+        "TWS",
+        "nm^-3",
+        "var N / V of each state (= dn/d ln z; NaN: not measured)",
+    ),
+    (
+        "path_nu_covariance_K_per_nm3",
+        "float64",
+        "TWS",
+        "K nm^-3",
+        "cov(N, U/k) / V of each state (= du/d ln z = -dn/d beta)",
+    ),
+    (
+        "path_u_variance_K2_per_nm3",
+        "float64",
+        "TWS",
+        "K^2 nm^-3",
+        "var(U/k) / V of each state (= -du/d beta)",
+    ),
 )
 #: the group's attributes: (name, meaning)
 EQUILIBRIUM_ATTRIBUTES: tuple[tuple[str, str], ...] = (

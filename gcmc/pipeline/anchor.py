@@ -36,8 +36,12 @@ must pass above the pore's capillary critical point: the pore's coexistence acti
 below the bulk saturation activity at each temperature (attractive walls condense below bulk
 saturation, common practice), which rises with temperature up to the bulk critical activity
 f_c / (k T_c) = phi_c p_c / (k T_c) <= p_c / (k T_c) (phi_c < 1 for an attractive fluid).
-Caveat (not checked by the code): at a low kernel temperature ln z_fix compresses the pore
-liquid well above saturation along leg (c); a pore that freezes there breaks reversibility.
+At a low kernel temperature ln z_fix compresses the pore liquid well above saturation along
+leg (c), and the pore liquid may freeze on leg (b) or (c); a path that crosses a transition
+is not reversible. Each state stores its fluctuations (var N, cov(N, U), var U), the exact
+derivatives of n and u along the path, and the assembly checks every interval against them
+(gcmc.kernel.equilibrium.path_jumps): a change of several times what the fluctuations at
+both ends allow is a jump, the anchor is not used, and the pore's reason names the interval.
 Each state's convergence (its flags) is stored with the path.
 
 The anchor is gcmc.kernel.equilibrium.path_grand_potential of the path's states; the
@@ -88,6 +92,23 @@ PATH_FIELDS = (
     "energy_K_per_nm3",
     "energy_K_per_nm3_stderr",
     "converged",
+    # the fluctuations, per pore volume: var N / V, cov(N, U/k) / V, var(U/k) / V (the exact
+    # derivatives of n and u along the path: gcmc.kernel.equilibrium.path_jumps)
+    "n_variance_per_nm3",
+    "nu_covariance_K_per_nm3",
+    "u_variance_K2_per_nm3",
+)
+#: the path fields stored in the kernel's equilibrium group: (task file field, dataset)
+STORED_PATH_FIELDS = (
+    ("temperature_K", "path_temperature_K"),
+    ("ln_z", "path_ln_z"),
+    ("density_per_nm3", "path_density_per_nm3"),
+    ("density_per_nm3_stderr", "path_density_per_nm3_stderr"),
+    ("energy_K_per_nm3", "path_energy_K_per_nm3"),
+    ("energy_K_per_nm3_stderr", "path_energy_K_per_nm3_stderr"),
+    ("n_variance_per_nm3", "path_n_variance_per_nm3"),
+    ("nu_covariance_K_per_nm3", "path_nu_covariance_K_per_nm3"),
+    ("u_variance_K2_per_nm3", "path_u_variance_K2_per_nm3"),
 )
 
 
@@ -249,6 +270,9 @@ def run_anchor_task(plan: BuildPlan, task: Task) -> Path:
             "energy_K_per_nm3": r.energy_K / vol,
             "energy_K_per_nm3_stderr": r.energy_K_stderr / vol,
             "converged": 1.0 if r.converged else 0.0,
+            "n_variance_per_nm3": r.molecules_variance / vol,
+            "nu_covariance_K_per_nm3": r.molecules_energy_covariance_K / vol,
+            "u_variance_K2_per_nm3": r.energy_variance_K2 / vol,
         }
         for k, v in row.items():
             arrays[f"path/{k}"][i] = v
@@ -294,20 +318,14 @@ def equilibrium_branch(
     by_key = {(a.t_index, a.width_key): a for a in anchors}
     for t in range(n_t):
         for j in range(n_w):
-            anchor = None
+            anchor = jump = None
             task = by_key.get((t, layout.ladders[t][j].width_key))
             if task is not None:
                 arrays, _ = load_task(task_path(plan, task))
                 m = arrays["path/ln_z"].size
-                for name, field in (
-                    ("temperature_K", "path_temperature_K"),
-                    ("ln_z", "path_ln_z"),
-                    ("density_per_nm3", "path_density_per_nm3"),
-                    ("density_per_nm3_stderr", "path_density_per_nm3_stderr"),
-                    ("energy_K_per_nm3", "path_energy_K_per_nm3"),
-                    ("energy_K_per_nm3_stderr", "path_energy_K_per_nm3_stderr"),
-                ):
-                    getattr(out, field)[t, j, :m] = arrays[f"path/{name}"]
+                nan = np.full(m, np.nan)  # fluctuations: absent from older anchor files
+                for name, field in STORED_PATH_FIELDS:
+                    getattr(out, field)[t, j, :m] = arrays.get(f"path/{name}", nan)
                 out.path_converged[t, j, :m] = arrays["path/converged"] == 1.0
                 try:
                     pi = eq.path_grand_potential(
@@ -321,7 +339,25 @@ def equilibrium_branch(
                     )
                 except InputError:
                     pi = None  # a state without a value: no anchor, the reason says so
-                if pi is not None:
+                jump = eq.worst_path_jump(
+                    eq.path_jumps(
+                        1.0 / arrays["path/temperature_K"],
+                        arrays["path/ln_z"],
+                        *(
+                            arrays.get(f"path/{name}", nan)
+                            for name in (
+                                "density_per_nm3",
+                                "density_per_nm3_stderr",
+                                "energy_K_per_nm3",
+                                "energy_K_per_nm3_stderr",
+                                "n_variance_per_nm3",
+                                "nu_covariance_K_per_nm3",
+                                "u_variance_K2_per_nm3",
+                            )
+                        ),
+                    )
+                )
+                if pi is not None and jump is None:
                     anchor = pi.anchor
                     out.anchor_beta_omega_per_nm3[t, j] = pi.beta_omega_per_nm3
                     out.anchor_stderr[t, j] = pi.stderr
@@ -330,6 +366,11 @@ def equilibrium_branch(
             out.has_loop[t, j] = bool(np.isfinite(r.loop_pressure_range_Pa[0]))
             out.has_transition[t, j] = r.has_transition
             out.reason[t, j] = r.reason
+            if task is not None and jump is not None and r.reason == eq.NO_ANCHOR:
+                # the path crossed a jump: its anchor is not trusted, and the reason says why
+                out.reason[t, j] = eq.describe_path_jump(
+                    jump, arrays["path/temperature_K"], arrays["path/ln_z"]
+                )
             out.fugacity_Pa[t, j] = r.fugacity_Pa
             out.pressure_Pa[t, j] = r.pressure_Pa
             out.ln_f_stderr[t, j] = r.ln_f_stderr

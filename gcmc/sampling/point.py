@@ -198,6 +198,15 @@ class PointResult:
     #: not measured. The thermodynamic integration of the equilibrium anchor needs <U>.
     energy_K: float = float("nan")
     energy_K_stderr: float = float("nan")
+    #: fluctuations over the production samples, pooled within replicas (each replica about
+    #: its own mean): var(N), cov(N, U/k) (K) and var(U/k) (K^2); NaN where not measured.
+    #: They are the exact derivatives of the grand canonical means (d<N>/d ln z = var N,
+    #: d<U>/d ln z = cov(N, U), d<N>/d beta = -cov(N, U), d<U>/d beta = -var U, at a fixed
+    #: activity z = f/(kT)), which the equilibrium anchor's path check compares with the
+    #: changes between neighbouring states (gcmc.kernel.equilibrium.path_jumps).
+    molecules_variance: float = float("nan")
+    molecules_energy_covariance_K: float = float("nan")
+    energy_variance_K2: float = float("nan")
 
     def to_dict(self) -> dict[str, Any]:
         """The result as a plain dict."""
@@ -664,6 +673,27 @@ def simulate_point(
     return _analyse(model, state, settings, runs)
 
 
+def pooled_fluctuations(runs: list[_ReplicaRun]) -> tuple[float, float, float]:
+    """var(N), cov(N, U/k) and var(U/k) of the replicas' production samples, each replica's
+    deviations taken about its own means (replicas on different branches do not inflate
+    them); NaN with fewer than MIN_SAMPLES_HEAT samples in all."""
+    size = sum(len(r.n) for r in runs)
+    if size <= max(MIN_SAMPLES_HEAT, len(runs)):
+        return math.nan, math.nan, math.nan
+    snn = snu = suu = 0.0
+    for r in runs:
+        if len(r.n) == 0:
+            continue
+        dn = np.asarray(r.n, float) - float(np.mean(r.n))
+        u = np.asarray(r.uff + r.usf, float)
+        du = u - float(u.mean())
+        snn += float(dn @ dn)
+        snu += float(dn @ du)
+        suu += float(du @ du)
+    dof = size - sum(1 for r in runs if len(r.n))
+    return snn / dof, snu / dof, suu / dof
+
+
 def _analyse(
     model: PoreModel, state: ThermoState, settings: SamplingSettings, runs: list[_ReplicaRun]
 ) -> PointOutcome:
@@ -743,6 +773,7 @@ def _analyse(
             for r in runs
         ]
         energy_err = float(np.sqrt(np.sum((weights * np.asarray(u_errs)) ** 2)))
+    n_var, nu_cov, u_var = pooled_fluctuations(runs)
     del u_all
     ineff = ests[0].inefficiency
     density = n_mean / vol if vol > 0 else float("nan")
@@ -797,6 +828,9 @@ def _analyse(
         replica_insertion_trials=[int(r.k_trials) for r in runs],
         energy_K=energy,
         energy_K_stderr=energy_err,
+        molecules_variance=n_var,
+        molecules_energy_covariance_K=nu_cov,
+        energy_variance_K2=u_var,
     )
     return PointOutcome(
         result=result,
