@@ -384,7 +384,7 @@ def test_a_reversible_path_has_no_jump():
     beta, ln_lam, n, u, fl = _lattice_path()
     r = _ratios(beta, ln_lam, n, u, fl)
     assert r.shape == (beta.size - 1, 2) and np.all(np.isfinite(r))
-    assert np.max(r) < 1.3, np.max(r)
+    assert np.max(r) < 1.0, np.max(r)  # 0.88 (n), 0.94 (u)
     assert eq.worst_path_jump(r) is None
     # the wrong derivative of u along the beta leg (cov(N, U) for var U, a factor eps/theta
     # off) reads the same path as a jump: the check can fail
