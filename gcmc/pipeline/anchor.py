@@ -52,7 +52,6 @@ from __future__ import annotations
 
 import math
 import socket
-import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -70,6 +69,7 @@ from gcmc.pipeline.tasks import (
     TemperaturePlan,
     load_task,
     pore_model,
+    task_clock,
     task_path,
     task_seed,
     write_task,
@@ -248,7 +248,7 @@ def run_anchor_task(plan: BuildPlan, task: Task) -> Path:
     arrays = {f"path/{k}": np.full(m, np.nan) for k in PATH_FIELDS}
     flags: list[str] = []
     positions = dmax = None
-    t_start, c_start = time.perf_counter(), time.process_time()
+    started = task_clock()
     for i in range(m):
         temp, lnz = float(path.temperature_K[i]), float(path.ln_z[i])
         state = ThermoState(
@@ -291,14 +291,7 @@ def run_anchor_task(plan: BuildPlan, task: Task) -> Path:
     arrays["henry_hot_per_nm3_per_pa"] = np.array(
         pore_limit(model, cfg.hot_temperature_K).henry_per_nm3_per_pa
     )
-    return write_task(
-        plan,
-        task,
-        arrays,
-        meta,
-        seconds=time.perf_counter() - t_start,
-        cpu_seconds=time.process_time() - c_start,
-    )
+    return write_task(plan, task, arrays, meta, started)
 
 
 # --------------------------------------------------------------------------------------------
@@ -324,8 +317,9 @@ def equilibrium_branch(
                 arrays, _ = load_task(task_path(plan, task))
                 m = arrays["path/ln_z"].size
                 nan = np.full(m, np.nan)  # fluctuations: absent from older anchor files
+                f = {name: arrays.get(f"path/{name}", nan) for name, _ in STORED_PATH_FIELDS}
                 for name, field in STORED_PATH_FIELDS:
-                    getattr(out, field)[t, j, :m] = arrays.get(f"path/{name}", nan)
+                    getattr(out, field)[t, j, :m] = f[name]
                 out.path_converged[t, j, :m] = arrays["path/converged"] == 1.0
                 try:
                     pi = eq.path_grand_potential(
@@ -341,20 +335,15 @@ def equilibrium_branch(
                     pi = None  # a state without a value: no anchor, the reason says so
                 jump = eq.worst_path_jump(
                     eq.path_jumps(
-                        1.0 / arrays["path/temperature_K"],
-                        arrays["path/ln_z"],
-                        *(
-                            arrays.get(f"path/{name}", nan)
-                            for name in (
-                                "density_per_nm3",
-                                "density_per_nm3_stderr",
-                                "energy_K_per_nm3",
-                                "energy_K_per_nm3_stderr",
-                                "n_variance_per_nm3",
-                                "nu_covariance_K_per_nm3",
-                                "u_variance_K2_per_nm3",
-                            )
-                        ),
+                        1.0 / f["temperature_K"],
+                        f["ln_z"],
+                        f["density_per_nm3"],
+                        f["density_per_nm3_stderr"],
+                        f["energy_K_per_nm3"],
+                        f["energy_K_per_nm3_stderr"],
+                        f["n_variance_per_nm3"],
+                        f["nu_covariance_K_per_nm3"],
+                        f["u_variance_K2_per_nm3"],
                     )
                 )
                 if pi is not None and jump is None:

@@ -33,7 +33,6 @@ meta), so the kernel's provenance and ``gcmc show`` name the method that produce
 from __future__ import annotations
 
 import functools
-import time
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -263,6 +262,7 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
         point_field,
         point_state,
         pore_model,
+        task_clock,
         task_seed,
         write_task,
     )
@@ -275,7 +275,7 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
     state = point_state(cfg, tp, k)
     s = step(task.step)
     extra: dict = {}
-    t0, c0 = time.perf_counter(), time.process_time()
+    started = task_clock()
     if s.point_method:
         from gcmc.physics.eos import make_eos
         from gcmc.sampling.certificate import POINT_METHODS
@@ -313,7 +313,6 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
         r = simulate_point(
             model, state, settings, task_seed(cfg, task), start=None, from_above=above
         ).result
-    seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
     arrays: dict[str, np.ndarray] = {}
     for name in POINT_FIELDS:
         arrays[f"point/{name}"] = np.array(float(point_field(r, name)))
@@ -331,4 +330,4 @@ def run_point_task(plan: BuildPlan, task: Task) -> Path:
     }
     arrays["henry_per_nm3_per_pa"] = np.array(limit.henry_per_nm3_per_pa)
     arrays["accessible"] = np.array(limit.accessible)
-    return write_task(plan, task, arrays, meta, seconds=seconds, cpu_seconds=cpu)
+    return write_task(plan, task, arrays, meta, started)

@@ -282,8 +282,7 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     flags: dict[str, list[str]] = {}
     seeds = task_seed(cfg, task)
     point_seeds = seeds.spawn(2 * n_p)
-    t_start = time.perf_counter()
-    c_start = time.process_time()
+    started = task_clock()
     branches = BRANCHES if cfg.pressures.descending else BRANCHES[:1]
     positions = None
     dmax = None
@@ -332,14 +331,12 @@ def run_task(plan: BuildPlan, task: Task) -> Path:
     }
     arrays["henry_per_nm3_per_pa"] = np.array(limit.henry_per_nm3_per_pa)
     arrays["accessible"] = np.array(limit.accessible)
-    return write_task(
-        plan,
-        task,
-        arrays,
-        meta,
-        seconds=time.perf_counter() - t_start,
-        cpu_seconds=time.process_time() - c_start,
-    )
+    return write_task(plan, task, arrays, meta, started)
+
+
+def task_clock() -> tuple[float, float]:
+    """The wall and CPU clocks at the start of a task (for :func:`write_task`)."""
+    return time.perf_counter(), time.process_time()
 
 
 def write_task(
@@ -347,13 +344,14 @@ def write_task(
     task: Task,
     arrays: dict[str, np.ndarray],
     meta: dict,
-    *,
-    seconds: float,
-    cpu_seconds: float,
+    started: tuple[float, float],
 ) -> Path:
     """Write a finished task of any kind (ladder, rerun, anchor): its arrays, its wall and
-    CPU seconds, and its metadata (``meta`` with the fields every task file carries: the
-    task's key, seconds, the seed's entropy and the task's spawn key), atomically."""
+    CPU seconds since ``started`` (:func:`task_clock`), and its metadata (``meta`` with the
+    fields every task file carries: the task's key, seconds, the seed's entropy and the
+    task's spawn key), atomically."""
+    seconds = time.perf_counter() - started[0]
+    cpu_seconds = time.process_time() - started[1]
     meta = {
         **meta,
         "task": task.key,
